@@ -1,0 +1,127 @@
+"""Command line: arguments, logging, exit codes. The only module that prints.
+
+Exit codes: 0 success; 2 bad usage, bad input or any chimeline error (one line on stderr).
+"""
+from __future__ import annotations
+
+import logging
+import sys
+from pathlib import Path
+
+import click
+
+from . import __version__
+from .errors import PipelineError
+
+log = logging.getLogger("chimeline")
+
+
+class _Progress:
+    """Progress callback: a tqdm bar on a terminal, nothing (INFO lines come from the runner) otherwise."""
+
+    def __init__(self, quiet: bool):
+        self.bar = None
+        self.enabled = not quiet and sys.stderr.isatty()
+
+    def __call__(self, stage: str, done: int, total: int | None):
+        if not self.enabled:
+            return
+        from tqdm import tqdm
+
+        if self.bar is None or self.bar.desc != stage:
+            if self.bar is not None:
+                self.bar.close()
+            self.bar = tqdm(total=total, desc=stage, unit="pt", unit_scale=True, leave=False, file=sys.stderr)
+        self.bar.n = done
+        self.bar.refresh()
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+def _setup_logging(verbose: int, quiet: bool):
+    level = logging.WARNING if quiet else (logging.DEBUG if verbose > 0 else logging.INFO)
+    logging.basicConfig(level=level, format="%(levelname)s %(message)s", stream=sys.stderr, force=True)
+    logging.getLogger("matplotlib").setLevel(logging.WARNING)
+    logging.getLogger("PIL").setLevel(logging.WARNING)
+
+
+def _fail(exc: PipelineError):
+    click.echo(f"chimeline: error: {exc}", err=True)
+    raise SystemExit(2)
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="chimeline")
+@click.option("-v", "--verbose", count=True, help="More log detail.")
+@click.option("-q", "--quiet", is_flag=True, help="Warnings and errors only; no progress bars.")
+@click.pass_context
+def cli(ctx, verbose, quiet):
+    """Tank settlement from laser scans: junction profile, noise, and evaluation.
+
+    \b
+    Typical use:
+      chimeline demo                         make a synthetic demo scan and process it
+      chimeline synth SCENE.yaml --out DIR   simulate a scan with known truth
+      chimeline run SCAN --out DIR           scan -> junction profile (+ evaluation)
+      chimeline evaluate PROFILE.csv --out DIR   settlement evaluation of a profile or survey
+
+    Results assist a qualified tank engineer or authorized inspector; they do
+    not replace them. The governing edition of the standard, local codes and
+    the owner's procedures prevail.
+    """
+    _setup_logging(verbose, quiet)
+    ctx.obj = {"quiet": quiet}
+
+
+@cli.command()
+@click.argument("scene_file", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=Path),
+              help="Folder for the scan file, its truth JSON and a scan view PNG.")
+@click.option("--set", "sets", multiple=True, metavar="KEY=VALUE", help="Override a scene key, e.g. output.format=laz.")
+@click.option("--density", type=float, default=None, help="Multiply the number of rays (overrides the scene's density).")
+@click.option("--points", type=float, default=None, help="Aim for about this many points (sets the density).")
+@click.option("--seed", type=int, default=None, help="Override the scene's seed.")
+@click.option("--no-plot", is_flag=True, help="Skip the scan view PNG (large scans).")
+@click.pass_context
+def synth(ctx, scene_file, out_dir, sets, density, points, seed, no_plot):
+    """Simulate a terrestrial laser scan of a tank scene with exact truth.
+
+    Rays are cast from each scanner station against the scene's surfaces;
+    writes SCAN (LAS/LAZ/PLY/XYZ/NPY per the scene's output.format) and
+    SCAN.truth.json with the junction elevation every 0.1 degree.
+    """
+    from .synth_cli import do_synth
+
+    try:
+        do_synth(scene_file, out_dir, sets, density, points, seed, no_plot, _Progress(ctx.obj["quiet"]))
+    except ValueError as exc:
+        raise click.UsageError(str(exc))
+    except PipelineError as exc:
+        _fail(exc)
+
+
+@cli.command()
+@click.option("--dir", "work_dir", default=Path("chimeline-demo"), show_default=True,
+              type=click.Path(file_okay=False, path_type=Path), help="Working folder (kept if it exists).")
+@click.option("--regenerate", is_flag=True, help="Simulate the demo scan again even if it exists.")
+@click.pass_context
+def demo(ctx, work_dir, regenerate):
+    """Make the embedded synthetic demo scan (if missing) and run every stage on it."""
+    from .synth_cli import do_demo
+
+    try:
+        do_demo(work_dir, regenerate, _Progress(ctx.obj["quiet"]), click.echo)
+    except PipelineError as exc:
+        _fail(exc)
+
+
+def main(argv=None):
+    """Console entry point."""
+    cli.main(args=argv, prog_name="chimeline")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,1 @@
+"""Renderers: CSV, JSON, plots and HTML. Nothing here computes results."""
