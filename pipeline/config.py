@@ -255,3 +255,147 @@ def default_yaml_text() -> str:
 
 def default_mapping() -> dict:
     return yaml.safe_load(default_yaml_text()) or {}
+
+
+# ---------------------------------------------------------------------------
+# the pipeline's schema: one section per stage
+
+
+@dataclass(frozen=True)
+class InputConfig:
+    units: str = choice_field("auto", ("auto", "m", "ft", "us_ft", "mm"),
+                              doc="length unit of the scan; auto: the LAS CRS unit if present, else m")
+    up_axis: str = choice_field("z", ("z", "y"), doc="which file axis points up")
+    chunk_size: int = rng_field(2_000_000, 10_000, 100_000_000, doc="points read per chunk")
+    max_nonfinite_fraction: float = rng_field(0.01, 0.0, 1.0, doc="refuse the scan above this share of NaN/inf points")
+
+
+@dataclass(frozen=True)
+class FrameConfig:
+    origin: Optional[tuple[float, float, float]] = None  # scan units; default: rounded median of the sample
+    azimuth_reference_deg: float = rng_field(0.0, -360.0, 360.0, doc="direction of azimuth 0, degrees clockwise from +Y")
+    azimuth_direction: str = choice_field("cw", ("cw", "ccw"))
+
+
+@dataclass(frozen=True)
+class TankConfig:
+    tag: str = ""
+    survey_date: str = ""
+    center_hint: Optional[tuple[float, float]] = None  # scan units (with any georeferencing offset)
+    diameter: Optional[Union[float, str]] = None  # nominal; number in scan units or "100 ft"
+    shell_height: Optional[Union[float, str]] = None
+    yield_strength: Optional[Union[float, str]] = None  # "36 ksi", "250 MPa"
+    youngs_modulus: Union[float, str] = "200 GPa"
+    roof: str = choice_field("fixed", ("fixed", "floating", "none"))
+
+
+@dataclass(frozen=True)
+class ShellConfig:
+    sample_points: int = rng_field(400_000, 5_000, 20_000_000, doc="points read for detection")
+    voxel_size: float = rng_field(0.05, 0.001, 2.0, doc="m, downsampling before normals")
+    normal_radius: float = rng_field(0.25, 0.01, 5.0, doc="m, neighbourhood for normals")
+    max_normal_z: float = rng_field(0.3, 0.01, 1.0, doc="|n_z| of shell candidates (near-horizontal normals)")
+    min_radius: float = rng_field(1.5, 0.1, 1000.0, doc="m")
+    max_radius: float = rng_field(60.0, 0.2, 1000.0, doc="m")
+    max_trials: int = rng_field(3000, 10, 1_000_000, doc="RANSAC trials per tank")
+    inlier_tolerance: float = rng_field(0.03, 0.001, 1.0, doc="m, radial distance of RANSAC inliers")
+    min_inliers: int = rng_field(500, 10, 10_000_000)
+    min_height: float = rng_field(1.0, 0.1, 100.0, doc="m, vertical extent a shell must show")
+    max_tanks: int = rng_field(4, 1, 20, doc="cylinders to look for")
+    max_tilt_deg: float = rng_field(2.0, 0.0, 20.0)
+    base_fit_height: float = rng_field(1.2, 0.2, 5.0, doc="m above the base used for the radius at the base")
+
+    def _check(self, prefix, source):
+        if self.min_radius >= self.max_radius:
+            raise ConfigError(f"{source}: '{_join(prefix, 'min_radius')}' ({self.min_radius}) must be below "
+                              f"'{_join(prefix, 'max_radius')}' ({self.max_radius})")
+
+
+@dataclass(frozen=True)
+class JunctionConfig:
+    band_below: float = rng_field(0.6, 0.05, 10.0, doc="m below the shell foot kept while streaming")
+    band_above: float = rng_field(1.5, 0.2, 10.0, doc="m above the shell foot kept while streaming")
+    band_outside: float = rng_field(0.6, 0.05, 5.0, doc="m outside the shell face kept while streaming")
+    radial_min: float = rng_field(0.006, 0.0, 0.5, doc="m outside the shell face where projection candidates start")
+    radial_max: Union[float, str] = "auto"  # m, or auto: estimated projection width minus radial_margin
+    radial_margin: float = rng_field(0.008, 0.0, 0.1, doc="m kept clear of the projection's outer edge")
+    radial_max_limit: float = rng_field(0.12, 0.01, 1.0, doc="m, largest projection width considered by auto")
+    sector_deg: float = rng_field(5.0, 0.5, 45.0, doc="sector for the coarse junction prior")
+    search_window: float = rng_field(0.08, 0.005, 1.0, doc="m around the shell foot searched for the plate")
+    height_gate: float = rng_field(0.025, 0.002, 0.5, doc="m around the prior kept as junction candidates")
+
+    def _check(self, prefix, source):
+        if isinstance(self.radial_max, str) and self.radial_max != "auto":
+            raise ConfigError(f"{source}: '{_join(prefix, 'radial_max')}' must be a number (m) or 'auto', "
+                              f"got {self.radial_max!r}")
+        if not isinstance(self.radial_max, str) and self.radial_max <= self.radial_min:
+            raise ConfigError(f"{source}: '{_join(prefix, 'radial_max')}' ({self.radial_max}) must exceed "
+                              f"'{_join(prefix, 'radial_min')}' ({self.radial_min})")
+
+
+@dataclass(frozen=True)
+class ProfileConfig:
+    bin_width_deg: float = rng_field(1.0, 0.05, 45.0)
+    bin_arc_length: Optional[float] = None  # m along the shell; overrides bin_width_deg
+    min_points: int = rng_field(4, 1, 10_000, doc="kept points for an 'ok' bin")
+    reject_k: float = rng_field(3.0, 1.5, 20.0, doc="robust z-score beyond which points are rejected")
+    max_iterations: int = rng_field(10, 1, 100)
+    max_reject_fraction: float = rng_field(0.5, 0.0, 1.0, doc="bins rejecting more are 'suspect'")
+    min_coverage: float = rng_field(0.5, 0.0, 1.0, doc="share of the circumference with ok bins")
+    on_low_coverage: str = choice_field("refuse", ("refuse", "flag"))
+
+
+@dataclass(frozen=True)
+class NoiseConfig:
+    confidence: float = rng_field(0.95, 0.5, 0.999)
+    pair_max_gap_deg: float = rng_field(0.2, 0.001, 5.0, doc="azimuth gap of neighbour pairs in the difference estimator")
+    agreement_p: float = rng_field(0.01, 0.0, 0.5, doc="estimators disagree when the F test p-value is below this")
+    agreement_ratio: float = rng_field(0.2, 0.0, 5.0, doc="... and the sigma ratio differs from 1 by more")
+
+
+@dataclass(frozen=True)
+class OutputConfig:
+    length_unit: str = choice_field("input", ("input", "m", "mm", "ft", "us_ft", "in"))
+    plots: bool = True
+
+
+@dataclass(frozen=True)
+class PipelineConfig:
+    seed: int = rng_field(0, 0, 2**63 - 1)
+    input: InputConfig = field(default_factory=InputConfig)
+    frame: FrameConfig = field(default_factory=FrameConfig)
+    tank: TankConfig = field(default_factory=TankConfig)
+    shell: ShellConfig = field(default_factory=ShellConfig)
+    junction: JunctionConfig = field(default_factory=JunctionConfig)
+    profile: ProfileConfig = field(default_factory=ProfileConfig)
+    noise: NoiseConfig = field(default_factory=NoiseConfig)
+    output: OutputConfig = field(default_factory=OutputConfig)
+    evaluate: dict = field(default_factory=dict)  # validated by the evaluation stage's own schema
+
+
+def load_config(path=None, sets=()) -> tuple[PipelineConfig, dict, str]:
+    """Resolve the config: embedded default, then the file, then --set pairs.
+
+    Returns the validated config, the resolved mapping and the source label used in messages.
+    """
+    base = default_mapping()
+    source = "default config"
+    if path is not None:
+        user = load_yaml(path)
+        base = _deep_update(base, user)
+        source = str(path)
+    if sets:
+        base = merge_sets(base, sets)
+        source = f"{source} with --set" if path is None else source
+    cfg = build(PipelineConfig, base, "", source)
+    return cfg, to_dict(cfg), source
+
+
+def _deep_update(a: dict, b: dict) -> dict:
+    out = copy.deepcopy(a)
+    for k, v in b.items():
+        if isinstance(v, dict) and isinstance(out.get(k), dict) and k != "evaluate":
+            out[k] = _deep_update(out[k], v)
+        else:
+            out[k] = copy.deepcopy(v)
+    return out

@@ -205,35 +205,36 @@ class Simulator:
         lab = np.where(np.isfinite(t), lab, -1)
         shape = H.shape
         T = t.reshape(shape)
-        # mixed pixels: a return whose range jumps relative to the local trend
+        # mixed pixels: where the range jumps between neighbouring rays (a depth edge lies between them), the
+        # beam footprint straddles the edge with a chance of footprint / spacing of the two hits
         mixed_target = np.full(shape, np.nan)
-        best_jump = np.zeros(shape)
+        straddle = np.zeros(shape)
+        ang_step = (h[1] - h[0]) if len(h) > 1 else 1e-3, (v[1] - v[0]) if len(v) > 1 else 1e-3
         for axis in (0, 1):
             if shape[axis] < 3:
                 continue
             with np.errstate(invalid="ignore"):
                 fwd = np.diff(T, axis=axis)
-            sl_mid = [slice(None)] * 2
-            sl_mid[axis] = slice(1, -1)
-            sl_prev = [slice(None)] * 2
-            sl_prev[axis] = slice(0, -2)
-            sl_next = [slice(None)] * 2
-            sl_next[axis] = slice(2, None)
-            mid = T[tuple(sl_mid)]
-            with np.errstate(invalid="ignore"):
-                df = fwd[tuple([slice(None)] * axis + [slice(1, None)])]
-                db = fwd[tuple([slice(None)] * axis + [slice(0, -1)])]
-                second = np.abs(df - db)
-                thr = np.maximum(0.02, 0.002 * mid)
-                for nb, jump in ((T[tuple(sl_next)], np.abs(df)), (T[tuple(sl_prev)], np.abs(db))):
-                    ok = np.isfinite(second) & (second > thr) & np.isfinite(nb) & (jump > thr)
-                    region = best_jump[tuple(sl_mid)]
-                    take = ok & (jump > region)
-                    region[take] = jump[take]
-                    mt = mixed_target[tuple(sl_mid)]
-                    mt[take] = nb[take]
-        is_edge = np.isfinite(mixed_target.reshape(-1)) & np.isfinite(t)
-        mix = is_edge & (rng.random(len(t)) < p.mixed_pixel_prob)
+            lo = [slice(None)] * 2
+            hi = [slice(None)] * 2
+            lo[axis] = slice(0, -1)
+            hi[axis] = slice(1, None)
+            for me, nb, jump in ((tuple(lo), tuple(hi), fwd), (tuple(hi), tuple(lo), -fwd)):
+                r_me = T[me]
+                with np.errstate(invalid="ignore"):
+                    thr = 0.06 + 0.003 * r_me  # smaller steps give a footprint-averaged range, not a floating point
+                    edge = np.isfinite(jump) & (np.abs(jump) > thr)
+                    # chance the footprint reaches across: footprint / lateral spacing of the two rays
+                    foot = p.beam_exit_diameter + 1e-3 * p.beam_divergence_mrad * r_me
+                    spacing = np.maximum(r_me * abs(ang_step[axis]), 1e-6)
+                    chance = np.where(edge, np.minimum(1.0, foot / spacing), 0.0)
+                region = straddle[me]
+                take = chance > region
+                region[take] = chance[take]
+                mt = mixed_target[me]
+                mt[take] = T[nb][take]
+        is_edge = (straddle.reshape(-1) > 0) & np.isfinite(t)
+        mix = is_edge & (rng.random(len(t)) < p.mixed_pixel_prob * straddle.reshape(-1))
         hit = np.isfinite(t)
         idx = np.nonzero(hit)[0]
         if len(idx) == 0:

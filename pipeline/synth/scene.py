@@ -153,7 +153,9 @@ class StationParams:
     range_noise_per_m: float = rng_field(0.0, 0.0, 0.001, doc="growth of the range sigma, m per m")
     incidence_noise_gain: float = rng_field(0.3, 0.0, 5.0, doc="range sigma x (1 + gain (1/cos(incidence) - 1))")
     angular_noise_deg: float = rng_field(0.0015, 0.0, 0.1)
-    mixed_pixel_prob: float = rng_field(0.3, 0.0, 1.0, doc="chance that a depth-edge return is mixed")
+    mixed_pixel_prob: float = rng_field(0.3, 0.0, 1.0, doc="chance that a return whose footprint spans a depth edge is mixed")
+    beam_divergence_mrad: float = rng_field(0.3, 0.0, 10.0, doc="full beam divergence")
+    beam_exit_diameter: float = rng_field(0.004, 0.0, 0.05, doc="m")
     max_range: float = rng_field(80.0, 5.0, 500.0)
     registration: RegistrationScene = field(default_factory=RegistrationScene)
     band: Optional[BandParams] = None

@@ -1,0 +1,1 @@
+"""Readers and writers at the edges of the pipeline."""

@@ -1,0 +1,1 @@
+"""Pipeline stages, one module each: frame, shell, junction, profile, noise."""

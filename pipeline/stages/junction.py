@@ -1,0 +1,163 @@
+"""Junction stage: the top of the bottom-plate projection at the shell's outer face (config section ``junction``).
+
+Works on the thin ring of points streamed around the shell base:
+
+1. shell foot: per sector, a low quantile of the points on the shell face
+   (|radial| < 2 x shell RMS) gives the rough base elevation;
+2. candidates: points between ``radial_min`` and ``radial_max`` outside the shell
+   face and within ``search_window`` of the foot; with ``radial_max: auto`` the
+   projection width is estimated from where the median height of the radial
+   profile drops (the plate's outer edge) and the window stops ``radial_margin``
+   short of it, away from mixed pixels at the edge and the foundation beyond;
+3. prior: per sector, the densest 2 mm height class of the candidates (the plate
+   top is a horizontal surface, so its points pile up in one class), smoothed by
+   a circular running median;
+4. gate: keep candidates within ``height_gate`` of the prior interpolated to
+   their azimuth. Stair treads, nozzles and supports sit above the gate; the
+   foundation, ground and mixed pixels below the edge sit outside the window or
+   below the gate. The profile stage then rejects what is left by robust scale.
+"""
+from __future__ import annotations
+
+import logging
+
+import numpy as np
+from scipy.ndimage import median_filter
+
+from ..config import JunctionConfig
+from ..errors import StageError
+from ..model import Junction, ShellFit
+
+log = logging.getLogger(__name__)
+
+
+def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, frame, cfg: JunctionConfig) -> Junction:
+    """Junction candidates from ring points (n, 3) local m with station ids (n,)."""
+    h, rho, dx, dy = shell.radial(pts)
+    z = pts[:, 2]
+    az = frame.azimuth_deg(dx, dy)
+    n_sec = int(round(360.0 / cfg.sector_deg))
+    sec_w = 360.0 / n_sec
+    sec = (az / sec_w).astype(int) % n_sec
+    # the shell face per sector (out-of-roundness, dents): radial offset of the wall above the base
+    d, wall_scale = _local_face(rho - shell.radius, z, az, sec, n_sec, sec_w)
+    tol = max(2.5 * wall_scale, 0.004)
+    face = np.abs(d) < tol
+    if face.sum() < 20:
+        raise StageError(f"junction: only {int(face.sum())} points on the shell face near the base; "
+                         f"the shell fit may be off (rms {shell.rms_residual * 1000:.1f} mm)")
+    foot = np.full(n_sec, np.nan)
+    for k in range(n_sec):
+        zz = z[face & (sec == k)]
+        if len(zz) >= 5:
+            foot[k] = np.percentile(zz, 2)
+    base_z = float(np.nanmedian(foot))
+    foot = _fill_circular(foot)
+    foot_at = _interp_circular(az, foot, sec_w)
+    near = (np.abs(z - foot_at) < cfg.search_window)
+    # projection width from the radial height profile
+    width = _projection_width(d, z - foot_at, near, cfg)
+    if cfg.radial_max == "auto":
+        rmax = (width - cfg.radial_margin) if width is not None else 0.045
+        rmax = max(rmax, cfg.radial_min + 0.004)
+    else:
+        rmax = float(cfg.radial_max)
+    rmin = max(cfg.radial_min, 4.0 * wall_scale)  # clear of the shell face's own noise
+    rmax = max(rmax, rmin + 0.004)
+    cand = near & (d >= rmin) & (d <= rmax)
+    n_cand = int(cand.sum())
+    if n_cand == 0:
+        raise StageError(f"junction: no points on the projection top between {rmin * 1000:.0f} and "
+                         f"{rmax * 1000:.0f} mm outside the shell; check junction.radial_min / radial_max")
+    prior = np.full(n_sec, np.nan)
+    for k in range(n_sec):
+        zz = z[cand & (sec == k)]
+        if len(zz) >= 3:
+            prior[k] = _mode(zz, 0.002)
+    prior_raw = prior.copy()
+    ok = np.isfinite(prior)
+    if ok.sum() >= 3:
+        filled = _fill_circular(prior)
+        smooth = median_filter(filled, size=3, mode="wrap")
+        # keep the smoothing only where it removes an outlying sector
+        prior = np.where(np.isfinite(prior_raw) & (np.abs(prior_raw - smooth) < cfg.height_gate), prior_raw, smooth)
+    prior = _fill_circular(prior)
+    prior_at = _interp_circular(az, prior, sec_w)
+    gated = cand & (np.abs(z - prior_at) < cfg.height_gate)
+    log.info("junction: %d ring points, %d candidates, %d within the gate; projection width %s",
+             len(pts), n_cand, int(gated.sum()), f"{width * 1000:.0f} mm" if width else "not found")
+    centres = (np.arange(n_sec) + 0.5) * sec_w
+    return Junction(azimuth_deg=az[gated], z=z[gated], station=station[gated], radial=d[gated],
+                    prior_sector_deg=centres, prior_z=np.where(np.isfinite(prior_raw), prior, np.nan),
+                    projection_width=width, radial_window=(rmin, rmax), n_ring=len(pts),
+                    n_candidates=n_cand, n_gated=int(gated.sum()), base_z=base_z)
+
+
+def _local_face(d0, z, az, sec, n_sec, sec_w, band=0.06):
+    """Distance outside the local shell face: d0 minus the wall's median offset in each sector."""
+    f = np.full(n_sec, np.nan)
+    for k in range(n_sec):
+        m = (sec == k) & (np.abs(d0) < band)
+        if m.sum() < 10:
+            continue
+        zz = z[m]
+        upper = zz > np.percentile(zz, 30)  # the wall, above the plate and foot
+        f0 = np.median(d0[m][upper])
+        near = upper & (np.abs(d0[m] - f0) < 0.015)
+        if near.sum() >= 5:
+            f[k] = np.median(d0[m][near])
+    if not np.isfinite(f).any():
+        return d0, 0.005
+    f = _fill_circular(f)
+    d = d0 - _interp_circular(az, f, sec_w)
+    wall = (np.abs(d) < 0.02)
+    scale = 1.4826 * np.median(np.abs(d[wall])) if wall.sum() > 10 else 0.005
+    return d, float(scale)
+
+
+def _mode(z, step):
+    lo = z.min()
+    b = ((z - lo) / step).astype(int)
+    counts = np.bincount(b)
+    # smooth over neighbouring classes so noise does not split the peak
+    sm = np.convolve(counts, [1, 2, 1], mode="same")
+    k = int(np.argmax(sm))
+    sel = np.abs(b - k) <= 1
+    return float(np.median(z[sel]))
+
+
+def _projection_width(d, dz, near, cfg):
+    """Outer edge of the plate: first 5 mm radial slice whose median height drops below the plate level."""
+    step = 0.005
+    edges = np.arange(0.0, cfg.radial_max_limit + step, step)
+    med = []
+    for a, b in zip(edges[:-1], edges[1:]):
+        s = near & (d >= a) & (d < b)
+        med.append(np.median(dz[s]) if s.sum() >= 10 else np.nan)
+    med = np.array(med)
+    if not np.isfinite(med[:4]).any():
+        return None
+    level = np.nanmedian(med[1:4]) if np.isfinite(med[1:4]).any() else np.nanmedian(med[:4])
+    for i in range(2, len(med)):
+        if np.isfinite(med[i]) and med[i] < level - 0.004:
+            return float(edges[i])
+    return None
+
+
+def _fill_circular(v):
+    v = np.asarray(v, dtype=float)
+    ok = np.isfinite(v)
+    if ok.all() or not ok.any():
+        return v
+    n = len(v)
+    x = np.arange(n)
+    xp = np.concatenate([x[ok] - n, x[ok], x[ok] + n])
+    fp = np.tile(v[ok], 3)
+    return np.interp(x, xp, fp)
+
+
+def _interp_circular(az, per_sector, sec_w):
+    n = len(per_sector)
+    centres = (np.arange(n) + 0.5) * sec_w
+    xp = np.concatenate([centres - 360, centres, centres + 360])
+    return np.interp(az, xp, np.tile(per_sector, 3))

@@ -1,0 +1,117 @@
+"""Noise stage: per-point vertical measurement noise with a confidence interval (config section ``noise``).
+
+Two independent estimators that must agree:
+
+- within-bin: the pooled variance of kept points about their (bin, station)
+  cell mean, with sum(n_c - 1) degrees of freedom; chi-square interval;
+- pairs: non-overlapping pairs of azimuth-neighbours of one station (closer than
+  ``pair_max_gap_deg``), sigma^2 = sum(d^2) / (2 m) with m degrees of freedom;
+  it never looks at the bins.
+
+Their agreement is an F test of equal variances. Station vertical offsets
+(registration) come from the profile stage (bins seen by more than one station,
+z = mu_bin + offset_station, offsets summing to zero); their spread, less its
+estimation noise, is ``registration_sigma``.
+"""
+from __future__ import annotations
+
+import logging
+
+import numpy as np
+from scipy import stats
+
+from ..config import NoiseConfig
+from ..model import Estimate, Junction, NoiseEstimate, Profile, StationNoise
+
+log = logging.getLogger(__name__)
+
+
+def truncation_factor(k: float) -> float:
+    """Variance of a unit normal truncated to |x| <= k (rejection at k sigma shrinks the variance by this)."""
+    if not np.isfinite(k):
+        return 1.0
+    return float(1 - 2 * k * stats.norm.pdf(k) / (2 * stats.norm.cdf(k) - 1))
+
+
+def _chi2_estimate(ss, dof, n, conf, trunc=1.0):
+    if dof <= 0:
+        return None
+    ss = ss / trunc
+    s2 = ss / dof
+    a = (1 - conf) / 2
+    lo = np.sqrt(ss / stats.chi2.ppf(1 - a, dof))
+    hi = np.sqrt(ss / stats.chi2.ppf(a, dof))
+    return Estimate(sigma=float(np.sqrt(s2)), ci=(float(lo), float(hi)), dof=int(dof), n_points=int(n))
+
+
+def _within(z, b, s, mask, conf, trunc=1.0):
+    z, b, s = z[mask], b[mask], s[mask]
+    if len(z) == 0:
+        return None
+    key = b.astype(np.int64) * 100000 + s.astype(np.int64)
+    _, inv, counts = np.unique(key, return_inverse=True, return_counts=True)
+    sums = np.bincount(inv, weights=z)
+    means = sums / counts
+    r = z - means[inv]
+    ss = float((r ** 2).sum())
+    dof = int((counts - 1).sum())
+    return _chi2_estimate(ss, dof, len(z), conf, trunc)
+
+
+def _pairs(az, z, conf, max_gap, trunc=1.0):
+    if len(z) < 4:
+        return None
+    o = np.argsort(az)
+    a, zz = az[o], z[o]
+    m = len(zz) // 2
+    d = zz[1:2 * m:2] - zz[0:2 * m:2]
+    gap = a[1:2 * m:2] - a[0:2 * m:2]
+    ok = gap < max_gap
+    d = d[ok]
+    if len(d) < 2:
+        return None
+    return _chi2_estimate(float((d ** 2).sum()) / 2.0, len(d), 2 * len(d), conf, trunc)
+
+
+def estimate_noise(p: Profile, j: Junction, cfg: NoiseConfig, reject_k: float = np.inf) -> NoiseEstimate:
+    """``reject_k``: the profile's rejection threshold in robust sigmas; the estimates are corrected for it."""
+    kept = p.kept
+    z, b, s, az = j.z, p.bin_index, j.station, j.azimuth_deg
+    conf = cfg.confidence
+    tf = truncation_factor(reject_k)
+    within = _within(z, b, s, kept, conf, tf)
+    if within is None:
+        within = Estimate(float("nan"), (float("nan"), float("nan")), 0, 0)
+    # pairs per station, pooled
+    ss_pairs, dof_pairs, n_pairs = 0.0, 0, 0
+    per_station = []
+    offsets = p.station_offset
+    offset_se = {k: within.sigma / np.sqrt(max(n, 1)) for k, n in p.station_offset_n.items()}
+    for st in np.unique(s[kept]):
+        m = kept & (s == st)
+        w_est = _within(z, b, s, m, conf, tf)
+        p_est = _pairs(az[m], z[m], conf, cfg.pair_max_gap_deg, tf)
+        if p_est is not None:
+            ss_pairs += p_est.sigma ** 2 * p_est.dof
+            dof_pairs += p_est.dof
+            n_pairs += p_est.n_points
+        per_station.append(StationNoise(int(st), w_est, p_est, float(offsets.get(int(st), 0.0)),
+                                        float(offset_se.get(int(st), 0.0))))
+    pairs = _chi2_estimate(ss_pairs * tf, dof_pairs, n_pairs, conf, tf) if dof_pairs else None
+    p_val, agree = None, True
+    if pairs is not None and within.dof > 0:
+        f = within.sigma ** 2 / pairs.sigma ** 2
+        p_val = float(2 * min(stats.f.cdf(f, within.dof, pairs.dof), stats.f.sf(f, within.dof, pairs.dof)))
+        agree = not (p_val < cfg.agreement_p and abs(within.sigma / pairs.sigma - 1) > cfg.agreement_ratio)
+    reg = 0.0
+    if len(offsets) >= 2:
+        o = np.array(list(offsets.values()))
+        e = np.array(list(offset_se.values()))
+        reg = float(np.sqrt(max(0.0, (o ** 2).sum() / (len(o) - 1) - np.mean(e ** 2))))
+    log.info("noise: sigma %.2f mm [%.2f, %.2f] within-bin, %s pairs; registration spread %.2f mm",
+             within.sigma * 1e3, within.ci[0] * 1e3, within.ci[1] * 1e3,
+             f"{pairs.sigma * 1e3:.2f} mm" if pairs else "no", reg * 1e3)
+    return NoiseEstimate(sigma=within.sigma, ci=within.ci, confidence=conf, within_bin=within, pairs=pairs,
+                         agreement_p=p_val, agree=agree, registration_sigma=reg, stations=tuple(per_station))
+
+
