@@ -343,6 +343,8 @@ class ProfileConfig:
     max_reject_fraction: float = rng_field(0.5, 0.0, 1.0, doc="bins rejecting more are 'suspect'")
     min_coverage: float = rng_field(0.5, 0.0, 1.0, doc="share of the circumference with ok bins")
     on_low_coverage: str = choice_field("refuse", ("refuse", "flag"))
+    station_leveling: str = choice_field("adjust", ("adjust", "report"),
+                                         doc="remove relative station vertical offsets, or only report them")
 
 
 @dataclass(frozen=True)

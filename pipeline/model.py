@@ -113,6 +113,8 @@ class Profile:
     residual: np.ndarray  # (n_candidates,) m, candidate z minus its bin location (nan where rejected)
     station_offset: dict = field(default_factory=dict)  # station id -> m, relative vertical offset (sum zero)
     station_offset_n: dict = field(default_factory=dict)  # station id -> points in shared bins behind it
+    slope_per_deg: Optional[np.ndarray] = None  # (n_bins,) m per degree, from the neighbouring bins
+    leveled: bool = False  # station offsets were removed from the elevations
 
 
 @dataclass(frozen=True)
@@ -143,4 +145,7 @@ class NoiseEstimate:
     agree: bool
     registration_sigma: float  # m, spread of station vertical offsets (0 with one station)
     stations: tuple  # StationNoise per station
+    registration_residual_sigma: float = 0.0  # m, station disagreement left after removing constant offsets
+    datum_sigma: float = 0.0  # m, 1 sigma of the scan's vertical datum (mean of the stations' levelling)
+    offset_se: dict = field(default_factory=dict)  # station id -> m, 1 sigma of its estimated offset
     method: str = "within-bin (bin x station) pooled variance; non-overlapping neighbour pairs"

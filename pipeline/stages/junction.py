@@ -84,13 +84,29 @@ def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
     prior = _fill_circular(prior)
     prior_at = _interp_circular(az, prior, sec_w)
     gated = cand & (np.abs(z - prior_at) < cfg.height_gate)
+    # move each point to the shell face along the tilt plane: the plate tilts with the tank, so across a
+    # 50 mm projection a 1:500 tilt is 0.1 mm, which is systematic by azimuth
+    zc = _to_face(z, az, d, gated, shell.radius, frame)
     log.info("junction: %d ring points, %d candidates, %d within the gate; projection width %s",
              len(pts), n_cand, int(gated.sum()), f"{width * 1000:.0f} mm" if width else "not found")
     centres = (np.arange(n_sec) + 0.5) * sec_w
-    return Junction(azimuth_deg=az[gated], z=z[gated], station=station[gated], radial=d[gated],
+    return Junction(azimuth_deg=az[gated], z=zc[gated], station=station[gated], radial=d[gated],
                     prior_sector_deg=centres, prior_z=np.where(np.isfinite(prior_raw), prior, np.nan),
                     projection_width=width, radial_window=(rmin, rmax), n_ring=len(pts),
                     n_candidates=n_cand, n_gated=int(gated.sum()), base_z=base_z)
+
+
+def _to_face(z, az, d, sel, radius, frame):
+    """z minus (radial slope of the best tilt plane) x (distance outside the face)."""
+    if sel.sum() < 10:
+        return z
+    th = np.radians(az[sel])
+    A = np.column_stack([np.ones(sel.sum()), np.cos(th), np.sin(th)])
+    coef, *_ = np.linalg.lstsq(A, z[sel], rcond=None)
+    # for z = a + b cos(theta) + c sin(theta) at the shell, the plane's slope outward is (b cos + c sin) / R
+    thr = np.radians(az)
+    slope = (coef[1] * np.cos(thr) + coef[2] * np.sin(thr)) / radius
+    return z - slope * d
 
 
 def _local_face(d0, z, az, sec, n_sec, sec_w, band=0.06):

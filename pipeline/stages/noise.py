@@ -76,7 +76,12 @@ def _pairs(az, z, conf, max_gap, trunc=1.0):
 def estimate_noise(p: Profile, j: Junction, cfg: NoiseConfig, reject_k: float = np.inf) -> NoiseEstimate:
     """``reject_k``: the profile's rejection threshold in robust sigmas; the estimates are corrected for it."""
     kept = p.kept
-    z, b, s, az = j.z, p.bin_index, j.station, j.azimuth_deg
+    b, s, az = p.bin_index, j.station, j.azimuth_deg
+    # remove the profile's local slope so the truth's own variation within a bin is not taken for noise
+    z = j.z
+    if p.slope_per_deg is not None:
+        daz = np.degrees(np.angle(np.exp(1j * np.radians(az - p.azimuth_deg[b]))))
+        z = j.z - p.slope_per_deg[b] * daz
     conf = cfg.confidence
     tf = truncation_factor(reject_k)
     within = _within(z, b, s, kept, conf, tf)
@@ -86,7 +91,8 @@ def estimate_noise(p: Profile, j: Junction, cfg: NoiseConfig, reject_k: float = 
     ss_pairs, dof_pairs, n_pairs = 0.0, 0, 0
     per_station = []
     offsets = p.station_offset
-    offset_se = {k: within.sigma / np.sqrt(max(n, 1)) for k, n in p.station_offset_n.items()}
+    # an offset is a difference of the station's points from bin means that are themselves estimated
+    offset_se = {k: within.sigma * np.sqrt(2.0 / max(n, 1)) for k, n in p.station_offset_n.items()}
     for st in np.unique(s[kept]):
         m = kept & (s == st)
         w_est = _within(z, b, s, m, conf, tf)
@@ -108,10 +114,40 @@ def estimate_noise(p: Profile, j: Junction, cfg: NoiseConfig, reject_k: float = 
         o = np.array(list(offsets.values()))
         e = np.array(list(offset_se.values()))
         reg = float(np.sqrt(max(0.0, (o ** 2).sum() / (len(o) - 1) - np.mean(e ** 2))))
+    resid_reg = _residual_registration(z, b, s, kept, offsets, within.sigma)
+    datum = reg / np.sqrt(len(offsets)) if len(offsets) >= 2 else 0.0
     log.info("noise: sigma %.2f mm [%.2f, %.2f] within-bin, %s pairs; registration spread %.2f mm",
              within.sigma * 1e3, within.ci[0] * 1e3, within.ci[1] * 1e3,
              f"{pairs.sigma * 1e3:.2f} mm" if pairs else "no", reg * 1e3)
     return NoiseEstimate(sigma=within.sigma, ci=within.ci, confidence=conf, within_bin=within, pairs=pairs,
-                         agreement_p=p_val, agree=agree, registration_sigma=reg, stations=tuple(per_station))
+                         agreement_p=p_val, agree=agree, registration_sigma=reg, stations=tuple(per_station),
+                         registration_residual_sigma=resid_reg, datum_sigma=float(datum), offset_se=offset_se)
+
+
+def _residual_registration(z, b, s, kept, offsets, sigma):
+    """Spread of (bin, station) cell means about bin mean + station offset, beyond what the noise explains."""
+    if not offsets:
+        return 0.0
+    zk, bk, sk = z[kept], b[kept], s[kept]
+    ids = np.array(sorted(offsets))
+    off = np.array([offsets[i] for i in ids])
+    pos = np.clip(np.searchsorted(ids, sk), 0, len(ids) - 1)
+    zc = zk - np.where(ids[pos] == sk, off[pos], 0.0)
+    key = bk.astype(np.int64) * 100000 + sk.astype(np.int64)
+    uk, inv, cnt = np.unique(key, return_inverse=True, return_counts=True)
+    cell_mean = np.bincount(inv, weights=zc) / cnt
+    cell_bin = uk // 100000
+    nst = np.bincount(np.unique(cell_bin, return_inverse=True)[1])
+    ub, binv = np.unique(cell_bin, return_inverse=True)
+    shared = nst[binv] > 1
+    if shared.sum() < 6:
+        return 0.0
+    # per shared bin, deviation of each cell from the unweighted mean of its bin's cells
+    bm = np.bincount(binv[shared], weights=cell_mean[shared]) / np.maximum(np.bincount(binv[shared]), 1)
+    dev = cell_mean[shared] - bm[binv[shared]]
+    k = nst[binv[shared]]
+    expected = sigma ** 2 / cnt[shared] * (k - 1) / k
+    v = np.mean(dev ** 2 * k / (k - 1) - expected * k / (k - 1))
+    return float(np.sqrt(max(v, 0.0)))
 
 

@@ -85,10 +85,10 @@ def bin_junction(j: Junction, cfg: ProfileConfig, radius: float) -> Profile:
             new[m] = np.isfinite(r[m]) & (np.abs(r[m]) <= cfg.reject_k * max(s, 1e-6))
         if np.array_equal(new, kept):
             break
-        # a bin never loses its last points this way
-        kept = new | (kept & (np.bincount(b[new], minlength=nb)[b] == 0))
+        kept = new
     offsets, offsets_n = station_offsets(j.z[kept], b[kept], station[kept])
-    loc = _means(j.z, b, kept, nb)
+    zl = j.z - _offset_of(station, offsets) if cfg.station_leveling == "adjust" else j.z
+    loc = _means(zl, b, kept, nb)
     n_pts = np.bincount(b[kept], minlength=nb)
     n_tot = np.bincount(b, minlength=nb)
     n_rej = n_tot - n_pts
@@ -118,7 +118,9 @@ def bin_junction(j: Junction, cfg: ProfileConfig, radius: float) -> Profile:
     suspect = (n_pts > 0) & (n_rej / np.maximum(n_tot, 1) > cfg.max_reject_fraction)
     status[suspect & (status == "ok")] = "suspect"
     status = status.astype(str)
-    resid = np.where(kept, j.z - _means(j.z, b, kept, nb)[b], np.nan)
+    # residuals about the local line through the bin (the profile's own slope removed)
+    daz = np.degrees(np.angle(np.exp(1j * np.radians(j.azimuth_deg - centres[b]))))
+    resid = np.where(kept, zl - (loc[b] + slope[b] * daz), np.nan)
     gaps = _gaps(status == "empty", w)
     cov = float((status == "ok").mean())
     log.info("profile: %d bins of %.3g deg, %.1f %% ok, %d gap(s), %d of %d candidates rejected",
@@ -127,7 +129,8 @@ def bin_junction(j: Junction, cfg: ProfileConfig, radius: float) -> Profile:
     return Profile(azimuth_deg=centres, bin_width_deg=w, elevation=loc, std_error=nanv.copy(), scale=scale,
                    n_points=n_pts, n_rejected=n_rej, n_stations=n_st, n_eff=nanv.copy(), status=status,
                    gaps=tuple(gaps), coverage=cov, kept=kept, bin_index=b, residual=resid,
-                   station_offset=offsets, station_offset_n=offsets_n)
+                   station_offset=offsets, station_offset_n=offsets_n, slope_per_deg=slope,
+                   leveled=cfg.station_leveling == "adjust" and bool(offsets))
 
 
 def _offset_of(station, offsets):
@@ -143,7 +146,8 @@ def station_offsets(z, b, s):
     """Vertical offset per station from bins shared by several stations.
 
     Least squares of z = mu_bin + offset_station over the shared bins (sparse, exact), with the offsets
-    weighted by point count to sum to zero. Returns offsets and the number of points behind each, by id.
+    constrained to average zero over the stations (the scan's vertical datum is the mean of the stations'
+    levelling). Returns offsets and the number of points behind each, by station id.
     """
     from scipy.sparse import coo_matrix
     from scipy.sparse.linalg import lsqr
@@ -163,7 +167,7 @@ def station_offsets(z, b, s):
     cnt_s = np.bincount(ss, minlength=J).astype(float)
     rows = np.concatenate([np.arange(n), np.arange(n), np.full(J, n)])
     cols = np.concatenate([bi, nm + ss, nm + np.arange(J)])
-    vals = np.concatenate([np.ones(n), np.ones(n), 1e3 * cnt_s / max(cnt_s.sum(), 1)])
+    vals = np.concatenate([np.ones(n), np.ones(n), np.full(J, 1e3 / J)])
     A = coo_matrix((vals, (rows, cols)), shape=(n + 1, nm + J)).tocsr()
     rhs = np.concatenate([zb - zb.mean(), [0.0]])
     o = lsqr(A, rhs, atol=1e-12, btol=1e-12, iter_lim=20000)[0][nm:]
@@ -178,8 +182,8 @@ def _means(z, b, kept, nb):
         return np.where(cnt > 0, s / np.maximum(cnt, 1), np.nan)
 
 
-def attach_uncertainty(p: Profile, j: Junction, noise: NoiseEstimate) -> Profile:
-    """Standard error per bin from per-station noise and the registration spread."""
+def attach_uncertainty(p: Profile, j: Junction, noise: NoiseEstimate, k_sigma: float = 3.0) -> Profile:
+    """Standard error per bin from per-station noise and the registration spread; flags isolated bins."""
     sig = {s.station: (s.within_bin.sigma if s.within_bin is not None else noise.sigma) for s in noise.stations}
     nb = len(p.azimuth_deg)
     se = np.full(nb, np.nan)
@@ -191,10 +195,47 @@ def attach_uncertainty(p: Profile, j: Junction, noise: NoiseEstimate) -> Profile
         ids, counts = np.unique(st, return_counts=True)
         n = counts.sum()
         var = sum(c * sig.get(int(i), noise.sigma) ** 2 for i, c in zip(ids, counts)) / n ** 2
-        var += noise.registration_sigma ** 2 * float(((counts / n) ** 2).sum())
+        w2 = (counts / n) ** 2
+        if p.leveled:
+            # offsets were removed: what remains is their estimation error and the registration error
+            # they cannot remove (rotations make it vary along the ring)
+            oe = np.array([noise.offset_se.get(int(i), noise.registration_sigma) for i in ids])
+            var += float((w2 * (oe ** 2 + noise.registration_residual_sigma ** 2)).sum())
+        else:
+            var += noise.registration_sigma ** 2 * float(w2.sum())
         se[k] = np.sqrt(var)
         neff[k] = noise.sigma ** 2 / var if var > 0 else n
-    return dataclasses.replace(p, std_error=se, n_eff=neff)
+    status = _flag_isolated(p.elevation, se, p.status.copy(), k_sigma)
+    cov = float((status == "ok").mean())
+    return dataclasses.replace(p, std_error=se, n_eff=neff, status=status, coverage=cov)
+
+
+def _flag_isolated(el, se, status, k_sigma):
+    """Mark 'suspect' an ok bin that sits apart from both neighbours on each side by more than k combined SE.
+
+    A bottom plate cannot step by several sigma within one bin and back: such a bin holds contaminated
+    points (an occluded arc where only mixed pixels or foundation points remain).
+    """
+    n = len(el)
+    if n < 5:
+        return status
+    idx = np.arange(n)
+    nb = np.stack([np.roll(el, s) for s in (2, 1, -1, -2)])
+    nse = np.stack([np.roll(se, s) for s in (2, 1, -1, -2)])
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-nan neighbourhoods inside gaps
+        med = np.nanmedian(nb, axis=0)
+        nse_med = np.nanmedian(nse, axis=0)
+    with np.errstate(invalid="ignore"):
+        dev = np.abs(el - med) / np.sqrt(se ** 2 + nse_med ** 2)
+        left = np.abs(el - np.roll(el, 1)) / np.sqrt(se ** 2 + np.roll(se, 1) ** 2)
+        right = np.abs(el - np.roll(el, -1)) / np.sqrt(se ** 2 + np.roll(se, -1) ** 2)
+    bad = (status == "ok") & np.isfinite(dev) & (dev > k_sigma) & (np.nan_to_num(left, nan=np.inf) > k_sigma) & \
+          (np.nan_to_num(right, nan=np.inf) > k_sigma)
+    status[idx[bad]] = "suspect"
+    return status
 
 
 def _gaps(empty: np.ndarray, w: float) -> list[tuple[float, float]]:

@@ -59,6 +59,14 @@ def fit_shell(xyz: np.ndarray, cfg: ShellConfig, rng: np.random.Generator, *, ce
         cov = _coverage(P[inl], fit)
         found.append((fit, n_in, cov, h_ext, P[inl]))
     good = [f for f in found if cfg.min_radius <= f[0][3] <= cfg.max_radius and f[3] >= cfg.min_height]
+    # concentric cylinders (ringwall face, insulation jacket, a course) belong to one tank: keep the tallest
+    good.sort(key=lambda f: -f[3] * f[1])
+    merged = []
+    for f in good:
+        if not any(np.hypot(f[0][0] - g[0][0], f[0][1] - g[0][1]) < 0.1 * g[0][3] and abs(f[0][3] - g[0][3]) < 0.1 * g[0][3]
+                   for g in merged):
+            merged.append(f)
+    good = merged
     if not good:
         raise StageError(_no_shell_message(found, cfg, n_cand, trials_total, metres_per_unit))
     if center_hint is not None:
