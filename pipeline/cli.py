@@ -46,6 +46,7 @@ def _setup_logging(verbose: int, quiet: bool):
     logging.basicConfig(level=level, format="%(levelname)s %(message)s", stream=sys.stderr, force=True)
     logging.getLogger("matplotlib").setLevel(logging.WARNING)
     logging.getLogger("PIL").setLevel(logging.WARNING)
+    logging.getLogger("laspy").setLevel(logging.CRITICAL)  # its read errors reach the user as one InputError
 
 
 def _fail(exc: PipelineError):

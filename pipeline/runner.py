@@ -90,8 +90,11 @@ def process_scan(scan, cfg: PipelineConfig, resolved: dict, source: str,
     log.info("read: %s, %d points, sample of %d", scan.name, src.n_points, len(sample.xyz))
 
     t = time.perf_counter()
+    if fin.sum() == 0:
+        raise InputError(f"{scan}: no point has finite coordinates")
     frame = make_frame(sample.xyz, src.units_hint, cfg.input, cfg.frame, warnings)
     local = frame.to_local(sample.xyz[fin])
+    _check_extent(scan, local, frame, cfg)
     hint = None
     if cfg.tank.center_hint is not None:
         h = np.asarray(cfg.tank.center_hint, dtype=float)
@@ -198,6 +201,22 @@ def run_scan(scan, out_dir, config_path=None, sets=(), progress=None) -> RunResu
         write_run_outputs(res, stage)
     res.out_dir = out_dir
     return res
+
+
+def _check_extent(scan, local, frame, cfg):
+    """Refuse a scan whose size is absurd for the declared unit, and say which unit would fit."""
+    from .units import LENGTH_FACTORS
+
+    span = float(np.max(np.ptp(local[:, :2], axis=0)))
+    lo, hi = 2 * cfg.shell.min_radius, 20 * cfg.shell.max_radius
+    if lo <= span <= hi:
+        return
+    span_file = span / frame.metres_per_unit
+    fits = [u for u, f in LENGTH_FACTORS.items() if lo <= span_file * f <= hi and u in ("m", "mm", "ft", "us_ft")
+            and abs(f - frame.metres_per_unit) > 1e-12]
+    hint = f"; if the scan is in {' or '.join(fits)}, set input.units" if fits else ""
+    raise InputError(f"{scan}: the scan spans {span:.4g} m in plan with input.units = {frame.units!r}, absurd for a "
+                     f"tank site{hint}")
 
 
 def _check_out_dir(out_dir: Path):

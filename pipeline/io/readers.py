@@ -82,8 +82,17 @@ class LasSource(ScanSource):
                         self.units_hint = _wkt_units(s if isinstance(s, str) else s.decode(errors="ignore"))
                     if self.units_hint:
                         break
-                if path.suffix.lower() == ".laz" or h.are_points_compressed:
+                self.compressed = path.suffix.lower() == ".laz" or h.are_points_compressed
+                if self.compressed:
                     self._check_laz_backend()
+                else:
+                    need = h.offset_to_point_data + self.n_points * h.point_format.size
+                    have = path.stat().st_size
+                    if have < need:
+                        raise InputError(f"{path}: truncated: the header says {self.n_points} points "
+                                         f"({need} bytes) but the file has {have} bytes")
+                self.bounds = (np.asarray(h.mins, dtype=float), np.asarray(h.maxs, dtype=float),
+                               np.asarray(h.scales, dtype=float))
         except InputError:
             raise
         except Exception as exc:
@@ -100,8 +109,16 @@ class LasSource(ScanSource):
 
     def _read(self, reader, n):
         pts = reader.read_points(n)
+        if len(pts) != n:
+            raise InputError(f"{self.path}: truncated: could read only {len(pts)} of {n} requested points")
         xyz = np.column_stack([np.asarray(pts.x, dtype=np.float64), np.asarray(pts.y, dtype=np.float64),
                                np.asarray(pts.z, dtype=np.float64)])
+        lo, hi, sc = self.bounds
+        out = (xyz < lo - 2 * sc) | (xyz > hi + 2 * sc)
+        if out.any():
+            k = int(out.any(axis=1).sum())
+            raise InputError(f"{self.path}: corrupt point data: {k} points lie outside the header's bounding box "
+                             f"(a damaged LAS/LAZ file, or a header that does not match its points)")
         sid = np.asarray(pts.point_source_id, dtype=np.int64) if self.has_source_id else None
         return Chunk(xyz, sid)
 
@@ -142,6 +159,8 @@ class LasSource(ScanSource):
                 for s in np.sort(starts):
                     r.seek(int(s))
                     parts.append(self._read(r, w))
+        except InputError:
+            raise
         except Exception as exc:
             raise InputError(f"{self.path}: corrupt or truncated LAS/LAZ data ({_short(exc)})") from None
         return _concat(parts)
