@@ -266,7 +266,7 @@ class InputConfig:
     units: str = choice_field("auto", ("auto", "m", "ft", "us_ft", "mm"),
                               doc="length unit of the scan; auto: the LAS CRS unit if present, else m")
     up_axis: str = choice_field("z", ("z", "y"), doc="which file axis points up")
-    chunk_size: int = rng_field(2_000_000, 10_000, 100_000_000, doc="points read per chunk")
+    chunk_size: int = rng_field(1_000_000, 10_000, 100_000_000, doc="points read per chunk")
     max_nonfinite_fraction: float = rng_field(0.01, 0.0, 1.0, doc="refuse the scan above this share of NaN/inf points")
 
 
@@ -291,19 +291,19 @@ class TankConfig:
 
 @dataclass(frozen=True)
 class ShellConfig:
-    sample_points: int = rng_field(400_000, 5_000, 20_000_000, doc="points read for detection")
+    sample_points: int = rng_field(200_000, 5_000, 20_000_000, doc="points read for detection")
     voxel_size: float = rng_field(0.05, 0.001, 2.0, doc="m, downsampling before normals")
     normal_radius: float = rng_field(0.25, 0.01, 5.0, doc="m, neighbourhood for normals")
     max_normal_z: float = rng_field(0.3, 0.01, 1.0, doc="|n_z| of shell candidates (near-horizontal normals)")
     min_radius: float = rng_field(1.5, 0.1, 1000.0, doc="m")
     max_radius: float = rng_field(60.0, 0.2, 1000.0, doc="m")
-    max_trials: int = rng_field(3000, 10, 1_000_000, doc="RANSAC trials per tank")
+    max_trials: int = rng_field(1500, 10, 1_000_000, doc="RANSAC trials per tank")
     inlier_tolerance: float = rng_field(0.03, 0.001, 1.0, doc="m, radial distance of RANSAC inliers")
     min_inliers: int = rng_field(500, 10, 10_000_000)
     min_height: float = rng_field(1.0, 0.1, 100.0, doc="m, vertical extent a shell must show")
     max_tanks: int = rng_field(4, 1, 20, doc="cylinders to look for")
     max_tilt_deg: float = rng_field(2.0, 0.0, 20.0)
-    base_fit_height: float = rng_field(1.2, 0.2, 5.0, doc="m above the base used for the radius at the base")
+    base_fit_height: float = rng_field(0.5, 0.2, 5.0, doc="m above the base used for the radius at the base")
 
     def _check(self, prefix, source):
         if self.min_radius >= self.max_radius:
@@ -313,9 +313,9 @@ class ShellConfig:
 
 @dataclass(frozen=True)
 class JunctionConfig:
-    band_below: float = rng_field(0.6, 0.05, 10.0, doc="m below the shell foot kept while streaming")
-    band_above: float = rng_field(1.5, 0.2, 10.0, doc="m above the shell foot kept while streaming")
-    band_outside: float = rng_field(0.6, 0.05, 5.0, doc="m outside the shell face kept while streaming")
+    band_below: float = rng_field(0.3, 0.05, 10.0, doc="m below the shell foot kept while streaming")
+    band_above: float = rng_field(0.6, 0.2, 10.0, doc="m above the shell foot kept while streaming")
+    band_outside: float = rng_field(0.3, 0.05, 5.0, doc="m outside the shell face kept while streaming")
     radial_min: float = rng_field(0.006, 0.0, 0.5, doc="m outside the shell face where projection candidates start")
     radial_max: Union[float, str] = "auto"  # m, or auto: estimated projection width minus radial_margin
     radial_margin: float = rng_field(0.008, 0.0, 0.1, doc="m kept clear of the projection's outer edge")
@@ -356,6 +356,46 @@ class NoiseConfig:
 
 
 @dataclass(frozen=True)
+class EvaluateConfig:
+    input_units: str = choice_field("auto", ("auto", "m", "mm", "ft", "us_ft", "in"),
+                                    doc="length unit of an evaluate input; auto: from the sibling profile.json")
+    tilt_rule: str = choice_field("p_value", ("p_value", "r_squared"),
+                                  doc="what decides that a tilt plane exists: the F test or the standard's R^2")
+    alpha: float = rng_field(0.05, 1e-6, 0.5, doc="significance level of the tests")
+    r2_min: float = rng_field(0.9, 0.0, 1.0, doc="the standard's R^2 acceptance of the cosine fit")
+    order_selection: str = choice_field("auto", ("auto", "nested_f", "bic", "fixed"),
+                                        doc="auto: BIC for dense profiles, nested F tests for sparse surveys")
+    order: Optional[int] = None  # the Fourier order with order_selection: fixed
+    max_order: int = rng_field(30, 1, 500, doc="cap on the Fourier order")
+    min_wavelength: float = rng_field(3.0, 0.1, 1000.0, doc="m of arc: shortest Fourier wavelength fitted")
+    deflection_spacing: Union[float, str] = "auto"  # m of arc between a point and its neighbours (dense), or auto
+    survey_std_error: float = rng_field(0.0015, 0.0, 0.1, doc="m, 1 sigma assumed for survey readings without one")
+    curvature_step_deg: float = rng_field(0.5, 0.01, 10.0, doc="azimuth step of the curvature check")
+    arc_table: Optional[str] = None  # YAML permissible settlement table; None: the packaged illustrative demo table
+    survey_center: Optional[tuple[float, float]] = None  # for x y z surveys; None: fitted circle
+    start_azimuth_deg: float = rng_field(0.0, 0.0, 360.0, doc="azimuth of point 1 in numbered surveys")
+    decimate: Optional[int] = None  # points of a simulated conventional survey taken from a dense profile
+    decimate_start_deg: Union[float, str] = 0.0  # or "all": every start within one spacing
+
+    def _check(self, prefix, source):
+        if self.order_selection == "fixed" and self.order is None:
+            raise ConfigError(f"{source}: '{_join(prefix, 'order')}' is required with order_selection: fixed")
+        if self.order is not None and not (isinstance(self.order, int) and 1 <= self.order <= 500):
+            raise ConfigError(f"{source}: '{_join(prefix, 'order')}' must be an int in [1, 500], got {self.order!r}")
+        if isinstance(self.deflection_spacing, str) and self.deflection_spacing != "auto":
+            raise ConfigError(f"{source}: '{_join(prefix, 'deflection_spacing')}' must be a number (m) or 'auto', "
+                              f"got {self.deflection_spacing!r}")
+        if not isinstance(self.deflection_spacing, str) and self.deflection_spacing <= 0:
+            raise ConfigError(f"{source}: '{_join(prefix, 'deflection_spacing')}' must be > 0, got "
+                              f"{self.deflection_spacing!r}")
+        if self.decimate is not None and not (isinstance(self.decimate, int) and 4 <= self.decimate <= 360):
+            raise ConfigError(f"{source}: '{_join(prefix, 'decimate')}' must be an int in [4, 360], got {self.decimate!r}")
+        d = self.decimate_start_deg
+        if isinstance(d, str) and d != "all":
+            raise ConfigError(f"{source}: '{_join(prefix, 'decimate_start_deg')}' must be degrees or 'all', got {d!r}")
+
+
+@dataclass(frozen=True)
 class OutputConfig:
     length_unit: str = choice_field("input", ("input", "m", "mm", "ft", "us_ft", "in"))
     plots: bool = True
@@ -372,7 +412,7 @@ class PipelineConfig:
     profile: ProfileConfig = field(default_factory=ProfileConfig)
     noise: NoiseConfig = field(default_factory=NoiseConfig)
     output: OutputConfig = field(default_factory=OutputConfig)
-    evaluate: dict = field(default_factory=dict)  # validated by the evaluation stage's own schema
+    evaluate: EvaluateConfig = field(default_factory=EvaluateConfig)
 
 
 def load_config(path=None, sets=()) -> tuple[PipelineConfig, dict, str]:
@@ -396,7 +436,7 @@ def load_config(path=None, sets=()) -> tuple[PipelineConfig, dict, str]:
 def _deep_update(a: dict, b: dict) -> dict:
     out = copy.deepcopy(a)
     for k, v in b.items():
-        if isinstance(v, dict) and isinstance(out.get(k), dict) and k != "evaluate":
+        if isinstance(v, dict) and isinstance(out.get(k), dict):
             out[k] = _deep_update(out[k], v)
         else:
             out[k] = copy.deepcopy(v)

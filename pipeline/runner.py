@@ -108,24 +108,26 @@ def process_scan(scan, cfg: PipelineConfig, resolved: dict, source: str,
 
     t = time.perf_counter()
     jc = cfg.junction
-    ring, ring_st, plot_parts, shell_parts = [], [], [], []
+    ring, ring_st, plot_parts = [], [], []
     stride = max(1, src.n_points // 150_000)
     n_read = n_bad = 0
     zlo, zhi = shell.z_min - jc.band_below, shell.z_min + jc.band_above
-    for ch in src.chunks(cfg.input.chunk_size):
-        ok = np.isfinite(ch.xyz).all(axis=1)
-        n_read += len(ok)
-        n_bad += int((~ok).sum())
-        p = frame.to_local(ch.xyz[ok] if not ok.all() else ch.xyz)
-        sid = ch.source_id[ok] if ch.source_id is not None else np.zeros(len(p), np.int64)
+    # the band in file units along the file's up axis (cut before any other work on a chunk)
+    up = 2 if frame.up_axis == "z" else 1
+    band_file = (zlo / frame.metres_per_unit + frame.origin[up], zhi / frame.metres_per_unit + frame.origin[up])
+    for n, band, strided, bad in src.stream(cfg.input.chunk_size, up, band_file, stride):
+        n_read += n
+        n_bad += bad
+        ok = np.isfinite(band.xyz).all(axis=1)
+        p = frame.to_local(band.xyz[ok] if not ok.all() else band.xyz)
+        sid = band.source_id[ok] if band.source_id is not None else np.zeros(len(p), np.int64)
         _, rho, _, _ = shell.radial(p)
         d = rho - shell.radius
         keep = (d > -0.15) & (d < jc.band_outside) & (p[:, 2] > zlo) & (p[:, 2] < zhi)
         ring.append(p[keep])
         ring_st.append(sid[keep])
-        plot_parts.append(p[::stride])
-        near_face = np.abs(d) < 0.1
-        shell_parts.append(p[near_face][:: max(1, stride // 4)])
+        sp = strided.xyz[np.isfinite(strided.xyz).all(axis=1)]
+        plot_parts.append(frame.to_local(sp))
         progress("stream", n_read, src.n_points)
     if n_read and n_bad / n_read > cfg.input.max_nonfinite_fraction:
         raise InputError(f"{scan}: {n_bad} of {n_read} points have NaN or infinite coordinates "
@@ -171,11 +173,16 @@ def process_scan(scan, cfg: PipelineConfig, resolved: dict, source: str,
                   junction_candidates=junction.n_candidates, junction_gated=junction.n_gated,
                   profile_kept=int(profile.kept.sum()), profile_rejected=int((~profile.kept).sum()))
     rs = ring_pts[np.random.default_rng(cfg.seed + 1).permutation(len(ring_pts))[:200_000]] if len(ring_pts) else ring_pts
+    plot_sample = np.concatenate(plot_parts) if plot_parts else np.zeros((0, 3))
+    if len(plot_sample):
+        _, rho_s, _, _ = shell.radial(plot_sample)
+        shell_sample = plot_sample[np.abs(rho_s - shell.radius) < 0.1]
+    else:
+        shell_sample = plot_sample
     return RunResult(scan_path=scan, config=cfg, resolved=resolved, config_source=source, frame=frame, shell=shell,
                      junction=junction, profile=profile, noise=noise, counts=counts, timings=timings,
                      warnings=warnings, input_sha256="", n_points_read=n_read,
-                     plot_sample=np.concatenate(plot_parts), ring_sample=rs,
-                     shell_sample=np.concatenate(shell_parts) if shell_parts else np.zeros((0, 3)))
+                     plot_sample=plot_sample, ring_sample=rs, shell_sample=shell_sample)
 
 
 def run_scan(scan, out_dir, config_path=None, sets=(), progress=None) -> RunResult:

@@ -32,7 +32,11 @@ class Chunk:
 
 
 class ScanSource:
-    """A scan that can be read in chunks. Subclasses implement ``chunks`` and ``sample``."""
+    """A scan that can be read in chunks. Subclasses implement ``chunks`` and ``sample``.
+
+    ``stream`` is the pipeline's fast path: it yields, per chunk, the number of points read, the points whose
+    up coordinate lies in a band (cut on the raw values before any other work) and a strided subsample.
+    """
 
     path: Path
     n_points: int
@@ -42,6 +46,15 @@ class ScanSource:
 
     def chunks(self, chunk_size: int) -> Iterator[Chunk]:
         raise NotImplementedError
+
+    def stream(self, chunk_size: int, up_index: int, up_range, stride: int):
+        lo, hi = up_range
+        for ch in self.chunks(chunk_size):
+            u = ch.xyz[:, up_index]
+            m = (u >= lo) & (u <= hi)
+            sid = ch.source_id
+            yield (len(ch.xyz), Chunk(ch.xyz[m], sid[m] if sid is not None else None),
+                   Chunk(ch.xyz[::stride], sid[::stride] if sid is not None else None), int((~np.isfinite(ch.xyz).all(axis=1)).sum()))
 
     def sample(self, n: int, rng: np.random.Generator) -> Chunk:
         raise NotImplementedError
@@ -93,6 +106,8 @@ class LasSource(ScanSource):
                                          f"({need} bytes) but the file has {have} bytes")
                 self.bounds = (np.asarray(h.mins, dtype=float), np.asarray(h.maxs, dtype=float),
                                np.asarray(h.scales, dtype=float))
+                self.scale = np.asarray(h.scales, dtype=float)
+                self.offset = np.asarray(h.offsets, dtype=float)
         except InputError:
             raise
         except Exception as exc:
@@ -141,6 +156,45 @@ class LasSource(ScanSource):
         except Exception as exc:
             raise InputError(f"{self.path}: corrupt or truncated LAS/LAZ data after {done} of "
                              f"{self.n_points} points ({_short(exc)})") from None
+
+    def stream(self, chunk_size, up_index, up_range, stride):
+        """Cut on the raw integer up coordinate first, so only the band is scaled to float."""
+        import laspy
+
+        dims = "XYZ"
+        lo_i = np.floor((up_range[0] - self.offset[up_index]) / self.scale[up_index])
+        hi_i = np.ceil((up_range[1] - self.offset[up_index]) / self.scale[up_index])
+        done = 0
+        try:
+            with laspy.open(self.path) as r:
+                while done < self.n_points:
+                    n = min(chunk_size, self.n_points - done)
+                    pts = r.read_points(n)
+                    if len(pts) != n:
+                        raise InputError(f"{self.path}: truncated: could read only {done + len(pts)} of "
+                                         f"{self.n_points} points")
+                    done += n
+                    raw = pts.array
+                    u = raw[dims[up_index]]
+                    m = (u >= lo_i) & (u <= hi_i)
+                    yield n, self._scaled(raw[m]), self._scaled(raw[::stride]), 0
+        except InputError:
+            raise
+        except Exception as exc:
+            raise InputError(f"{self.path}: corrupt or truncated LAS/LAZ data after {done} of "
+                             f"{self.n_points} points ({_short(exc)})") from None
+
+    def _scaled(self, raw):
+        xyz = np.empty((len(raw), 3))
+        for i, d in enumerate("XYZ"):
+            xyz[:, i] = raw[d] * self.scale[i] + self.offset[i]
+        lo, hi, sc = self.bounds
+        if len(xyz) and ((xyz < lo - 2 * sc) | (xyz > hi + 2 * sc)).any():
+            k = int(((xyz < lo - 2 * sc) | (xyz > hi + 2 * sc)).any(axis=1).sum())
+            raise InputError(f"{self.path}: corrupt point data: {k} points lie outside the header's bounding box "
+                             f"(a damaged LAS/LAZ file, or a header that does not match its points)")
+        sid = raw["point_source_id"].astype(np.int64) if self.has_source_id else None
+        return Chunk(xyz, sid)
 
     def sample(self, n, rng):
         """Read ``n_windows`` contiguous windows spread over the file (seekable, so LAZ decodes ~n points)."""

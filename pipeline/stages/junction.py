@@ -38,28 +38,30 @@ def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
     az = frame.azimuth_deg(dx, dy)
     n_sec = int(round(360.0 / cfg.sector_deg))
     sec_w = 360.0 / n_sec
-    sec = (az / sec_w).astype(int) % n_sec
+    sec = (az / sec_w).astype(np.int64) % n_sec
+    order = np.argsort(sec, kind="stable")
+    bounds = np.searchsorted(sec[order], np.arange(n_sec + 1))
+    slices = [order[bounds[k]:bounds[k + 1]] for k in range(n_sec)]
     # the shell face per sector (out-of-roundness, dents): radial offset of the wall above the base
-    d, wall_scale = _local_face(rho - shell.radius, z, az, sec, n_sec, sec_w)
+    d, wall_scale = _local_face(rho - shell.radius, z, az, slices, sec_w)
     tol = max(2.5 * wall_scale, 0.004)
     face = np.abs(d) < tol
     if face.sum() < 20:
         raise StageError(f"junction: only {int(face.sum())} points on the shell face near the base; "
                          f"the shell fit may be off (rms {shell.rms_residual * 1000:.1f} mm)")
     foot = np.full(n_sec, np.nan)
-    for k in range(n_sec):
-        zz = z[face & (sec == k)]
+    for k, idx in enumerate(slices):
+        zz = z[idx][face[idx]]
         if len(zz) >= 5:
             foot[k] = np.percentile(zz, 2)
     base_z = float(np.nanmedian(foot))
     foot = _fill_circular(foot)
     foot_at = _interp_circular(az, foot, sec_w)
-    near = (np.abs(z - foot_at) < cfg.search_window)
+    near = np.abs(z - foot_at) < cfg.search_window
     # projection width from the radial height profile
     width = _projection_width(d, z - foot_at, near, cfg)
     if cfg.radial_max == "auto":
         rmax = (width - cfg.radial_margin) if width is not None else 0.045
-        rmax = max(rmax, cfg.radial_min + 0.004)
     else:
         rmax = float(cfg.radial_max)
     rmin = max(cfg.radial_min, 4.0 * wall_scale)  # clear of the shell face's own noise
@@ -70,8 +72,8 @@ def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
         raise StageError(f"junction: no points on the projection top between {rmin * 1000:.0f} and "
                          f"{rmax * 1000:.0f} mm outside the shell; check junction.radial_min / radial_max")
     prior = np.full(n_sec, np.nan)
-    for k in range(n_sec):
-        zz = z[cand & (sec == k)]
+    for k, idx in enumerate(slices):
+        zz = z[idx][cand[idx]]
         if len(zz) >= 3:
             prior[k] = _mode(zz, 0.002)
     prior_raw = prior.copy()
@@ -109,24 +111,27 @@ def _to_face(z, az, d, sel, radius, frame):
     return z - slope * d
 
 
-def _local_face(d0, z, az, sec, n_sec, sec_w, band=0.06):
+def _local_face(d0, z, az, slices, sec_w, band=0.06):
     """Distance outside the local shell face: d0 minus the wall's median offset in each sector."""
+    n_sec = len(slices)
     f = np.full(n_sec, np.nan)
-    for k in range(n_sec):
-        m = (sec == k) & (np.abs(d0) < band)
+    for k, idx in enumerate(slices):
+        dd = d0[idx]
+        m = np.abs(dd) < band
         if m.sum() < 10:
             continue
-        zz = z[m]
+        zz = z[idx][m]
+        dd = dd[m]
         upper = zz > np.percentile(zz, 30)  # the wall, above the plate and foot
-        f0 = np.median(d0[m][upper])
-        near = upper & (np.abs(d0[m] - f0) < 0.015)
+        f0 = np.median(dd[upper])
+        near = upper & (np.abs(dd - f0) < 0.015)
         if near.sum() >= 5:
-            f[k] = np.median(d0[m][near])
+            f[k] = np.median(dd[near])
     if not np.isfinite(f).any():
         return d0, 0.005
     f = _fill_circular(f)
     d = d0 - _interp_circular(az, f, sec_w)
-    wall = (np.abs(d) < 0.02)
+    wall = np.abs(d) < 0.02
     scale = 1.4826 * np.median(np.abs(d[wall])) if wall.sum() > 10 else 0.005
     return d, float(scale)
 
@@ -146,11 +151,16 @@ def _projection_width(d, dz, near, cfg):
     """Outer edge of the plate: first 5 mm radial slice whose median height drops below the plate level."""
     step = 0.005
     edges = np.arange(0.0, cfg.radial_max_limit + step, step)
-    med = []
-    for a, b in zip(edges[:-1], edges[1:]):
-        s = near & (d >= a) & (d < b)
-        med.append(np.median(dz[s]) if s.sum() >= 10 else np.nan)
-    med = np.array(med)
+    sel = near & (d >= 0) & (d < edges[-1])
+    dd, zz = d[sel], dz[sel]
+    k = (dd / step).astype(int)
+    med = np.full(len(edges) - 1, np.nan)
+    o = np.argsort(k, kind="stable")
+    b = np.searchsorted(k[o], np.arange(len(edges)))
+    for i in range(len(edges) - 1):
+        v = zz[o[b[i]:b[i + 1]]]
+        if len(v) >= 10:
+            med[i] = np.median(v)
     if not np.isfinite(med[:4]).any():
         return None
     level = np.nanmedian(med[1:4]) if np.isfinite(med[1:4]).any() else np.nanmedian(med[:4])

@@ -99,6 +99,8 @@ def refine_base(shell: ShellFit, pts: np.ndarray, base_z: float, cfg: ShellConfi
     if sel.sum() < 50:
         return shell
     q = pts[sel]
+    if len(q) > 60_000:  # plenty for three parameters; keeps the fit fast on dense scans
+        q = q[:: len(q) // 60_000 + 1]
     ax = shell.axis
     c0 = shell.center
 
@@ -135,7 +137,7 @@ def _normals(xyz, cfg):
 def _ransac_circle(P, N, cfg, rng, batch=256):
     n = len(P)
     xy = P[:, :2]
-    sub = rng.choice(n, min(n, 20000), replace=False) if n > 20000 else np.arange(n)
+    sub = rng.choice(n, 6000, replace=False) if n > 6000 else np.arange(n)
     xs, ns = xy[sub], N[sub, :2]
     ns = ns / np.maximum(np.linalg.norm(ns, axis=1, keepdims=True), 1e-9)
     best, best_score, trials = None, 0, 0
