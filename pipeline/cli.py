@@ -156,6 +156,45 @@ def run(ctx, scan, config_path, sets, out_dir):
         click.echo(f"warning: {w}", err=True)
 
 
+@cli.command()
+@click.argument("input_csv", type=click.Path(path_type=Path))
+@click.option("--config", "config_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="YAML config with the tank data (tank.*) and evaluate.* settings.")
+@click.option("--set", "sets", multiple=True, metavar="KEY=VALUE",
+              help="Override a config key, e.g. tank.yield_strength='36 ksi' (repeatable).")
+@click.option("--decimate", type=int, default=None, help="Also evaluate an N-point survey sampled from a dense profile.")
+@click.option("--out", "out_dir", required=True, type=click.Path(path_type=Path), help="Output folder.")
+@click.pass_context
+def evaluate(ctx, input_csv, config_path, sets, decimate, out_dir):
+    """Evaluate shell settlement from a profile.csv or a conventional survey CSV.
+
+    \b
+    Inputs: profile.csv from 'chimeline run', or a survey with columns
+      azimuth_deg,elevation[,label,std_error]  or  x,y,z[,label]  or  point,elevation
+    Tank data come from the config: tank.diameter, tank.shell_height, tank.yield_strength
+    (with units, e.g. '36 ksi'), tank.youngs_modulus, tank.roof. Writes evaluation.json,
+    evaluation.csv and fe_out_of_plane.csv into OUT.
+    """
+    from .config import parse_set_pairs
+    from .evaluate.runner import evaluate_file
+
+    try:
+        pairs = parse_set_pairs(sets)
+    except ValueError as exc:
+        raise click.UsageError(str(exc))
+    if decimate is not None:
+        pairs.append(("evaluate.decimate", decimate))
+    try:
+        ev = evaluate_file(input_csv, out_dir, config_path, pairs)
+    except PipelineError as exc:
+        _fail(exc)
+    click.echo(f"verdict: {ev.verdict}  (" + "; ".join(f"{c.name}: {c.verdict}" for c in ev.criteria) + ")")
+    click.echo(f"tilt {ev.tilt.amplitude * 1e3:.1f} mm, R^2 = {ev.tilt.r_squared:.3f}, p = {ev.tilt.f_test.p_value:.3g}; "
+               f"wrote {out_dir}/evaluation.json")
+    for w in ev.warnings:
+        click.echo(f"warning: {w}", err=True)
+
+
 def main(argv=None):
     """Console entry point."""
     cli.main(args=argv, prog_name="chimeline")
