@@ -195,6 +195,66 @@ def evaluate(ctx, input_csv, config_path, sets, decimate, out_dir):
         click.echo(f"warning: {w}", err=True)
 
 
+@cli.command()
+@click.argument("run_dirs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option("--out", "out_dir", required=True, type=click.Path(path_type=Path), help="Output folder.")
+@click.option("--alpha", type=float, default=0.05, show_default=True, help="Significance level of the tests.")
+def compare(run_dirs, out_dir, alpha):
+    """QA: compare runs by noise (per run and station) and by profile.
+
+    The first RUN_DIR is the reference. Writes compare.json, compare.csv and compare.html.
+    """
+    from .compare import compare_runs, write_compare
+
+    try:
+        result = compare_runs(run_dirs, alpha)
+        write_compare(result, out_dir)
+    except PipelineError as exc:
+        _fail(exc)
+    for r in result["runs"]:
+        click.echo(f"{r['dir']}: sigma {r['sigma'] * 1e3:.3f} mm [{r['ci'][0] * 1e3:.3f}, {r['ci'][1] * 1e3:.3f}]")
+    for p in result["pairs"]:
+        n = p["noise"]
+        click.echo(f"{p['run']} / reference: sigma ratio {n['sigma_ratio']:.3f} [{n['ratio_ci95'][0]:.3f}, "
+                   f"{n['ratio_ci95'][1]:.3f}], F test p = {n['p_value']:.3g}: noise "
+                   f"{'differs' if n['noise_differs'] else 'does not differ'} at alpha = {alpha}")
+        pd = p["profile"]
+        if "mean_difference" in pd:
+            click.echo(f"  profile difference {pd['mean_difference'] * 1e3:+.2f} +- {pd['mean_difference_se'] * 1e3:.2f} mm "
+                       f"over {pd['n_common']} bins, consistency p = {pd['consistency_p']:.3g}")
+    click.echo(f"wrote {out_dir}/compare.html")
+
+
+@cli.command()
+@click.argument("run_dir", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--set", "sets", multiple=True, metavar="KEY=VALUE", help="Override a key of the earlier run's config.")
+@click.option("--out", "out_dir", required=True, type=click.Path(path_type=Path), help="New output folder.")
+@click.pass_context
+def rerun(ctx, run_dir, sets, out_dir):
+    """Run again with the earlier run's input and resolved config, plus --set changes; show what changed."""
+    from .config import parse_set_pairs
+    from .rerun import rerun as do_rerun
+
+    try:
+        pairs = parse_set_pairs(sets)
+    except ValueError as exc:
+        raise click.UsageError(str(exc))
+    progress = _Progress(ctx.obj["quiet"])
+    try:
+        changed, headline = do_rerun(run_dir, out_dir, pairs, progress)
+    except PipelineError as exc:
+        progress.close()
+        _fail(exc)
+    progress.close()
+    click.echo("changed config keys:" if changed else "changed config keys: none")
+    for k, a, b in changed:
+        click.echo(f"  {k}: {a!r} -> {b!r}")
+    click.echo("headline results (earlier -> now):")
+    for k, a, b in headline:
+        click.echo(f"  {k}: {a} -> {b}")
+    click.echo(f"wrote {out_dir}")
+
+
 def main(argv=None):
     """Console entry point."""
     cli.main(args=argv, prog_name="chimeline")

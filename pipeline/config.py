@@ -138,6 +138,10 @@ def _convert(tp, value, key, source, md):
             _fail(source, key, _type_name(tp) + _range_text(md), value)
         return value
     if tp is str:
+        import datetime
+
+        if isinstance(value, datetime.date):  # YAML reads 2026-06-15 as a date
+            value = value.isoformat()
         if not isinstance(value, str):
             _fail(source, key, "a string", value)
         ch = md.get("choices")

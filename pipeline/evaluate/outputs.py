@@ -131,3 +131,14 @@ def write_evaluation_outputs(ev, stage: Path, run=None, resolved=None, config_so
     write_json(stage / "evaluation.json", js)
     write_text(stage / "evaluation.csv", evaluation_csv(ev, units))
     write_text(stage / "fe_out_of_plane.csv", fe_csv(ev, units))
+    if run is None:
+        from ..report.html import evaluation_figures, render_report
+
+        figs = evaluation_figures(ev, units)
+        (stage / "plots").mkdir(exist_ok=True)
+        for name, png in figs.items():
+            (stage / "plots" / f"{name}.png").write_bytes(png)
+        info = {"input": str(input_path), "sha256": js["input"]["sha256"], "points": len(ev.survey.azimuth_deg),
+                "dense profile": ev.survey.dense}
+        tag = (resolved or {}).get("tank", {}).get("tag") or Path(input_path).stem
+        write_text(stage / "report.html", render_report(None, ev, units, figs, resolved, config_source, info, tag))

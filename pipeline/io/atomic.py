@@ -24,10 +24,18 @@ def atomic_path(target):
     tmp = Path(tmp)
     try:
         yield tmp
+        if tmp.exists():
+            os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the file ordinary permissions
         os.replace(tmp, target)
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+
+
+def _umask() -> int:
+    m = os.umask(0)
+    os.umask(m)
+    return m
 
 
 def write_text(target, text: str) -> None:

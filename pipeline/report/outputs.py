@@ -111,6 +111,9 @@ def profile_summary(res) -> dict:
                   "method": n.method, "within_bin": _estimate(n.within_bin, L), "pairs": _estimate(n.pairs, L),
                   "agreement_p": _num(n.agreement_p, 6), "estimators_agree": n.agree,
                   "registration_sigma": _num(L.length(n.registration_sigma), 7),
+                  "registration_residual_sigma": _num(L.length(n.registration_residual_sigma), 7),
+                  "datum_sigma": _num(L.length(n.datum_sigma), 7),
+                  "stations_leveled": bool(res.profile.leveled),
                   "stations": [{"station": st.station, "within_bin": _estimate(st.within_bin, L),
                                 "pairs": _estimate(st.pairs, L), "vertical_offset": _num(L.length(st.offset), 7),
                                 "vertical_offset_se": _num(L.length(st.offset_se), 7)} for st in n.stations]},
@@ -122,6 +125,19 @@ def profile_summary(res) -> dict:
                               "does not depend on a small tilt error",
         "caution": CAUTION,
     }
+
+
+def residuals_csv_text(res) -> str:
+    """Kept junction points' residuals about their bin line, per station (for QA comparisons)."""
+    L = Lengths(res)
+    p, j = res.profile, res.junction
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["azimuth_deg", "station", "bin", "residual"])
+    k = np.nonzero(p.kept)[0]
+    for i in k:
+        w.writerow([f"{j.azimuth_deg[i]:.4f}", int(j.station[i]), int(p.bin_index[i]), f"{L.length(p.residual[i]):.7f}"])
+    return buf.getvalue()
 
 
 def write_run_outputs(res, stage: Path) -> None:
@@ -139,3 +155,16 @@ def write_run_outputs(res, stage: Path) -> None:
         from ..evaluate.outputs import write_evaluation_outputs
 
         write_evaluation_outputs(res.evaluation, stage, run=res)
+    write_text(stage / "residuals.csv", residuals_csv_text(res))
+    if res.config.output.plots:
+        from .html import render_report, run_figures
+
+        figs = run_figures(res, res.evaluation, res.out_units)
+        (stage / "plots").mkdir(exist_ok=True)
+        for name, png in figs.items():
+            (stage / "plots" / f"{name}.png").write_bytes(png)
+        info = {"scan": str(res.scan_path), "sha256": res.input_sha256, "points read": res.n_points_read,
+                "scan units": f"{res.frame.units} ({res.frame.units_source})",
+                "local origin (scan units)": ", ".join(f"{v:.3f}" for v in res.frame.origin)}
+        write_text(stage / "report.html", render_report(res, res.evaluation, res.out_units, figs, res.resolved,
+                                                         res.config_source, info, res.config.tank.tag or res.scan_path.stem))
