@@ -319,7 +319,8 @@ class ShellConfig:
 class JunctionConfig:
     band_below: float = rng_field(0.3, 0.05, 10.0, doc="m below the shell foot kept while streaming")
     band_above: float = rng_field(0.6, 0.2, 10.0, doc="m above the shell foot kept while streaming")
-    band_outside: float = rng_field(0.3, 0.05, 5.0, doc="m outside the shell face kept while streaming")
+    band_outside: float = rng_field(0.15, 0.05, 5.0, doc="m outside the shell face kept while streaming")
+    face_budget: int = rng_field(600_000, 10_000, 100_000_000, doc="shell-face points kept from the whole scan")
     radial_min: float = rng_field(0.006, 0.0, 0.5, doc="m outside the shell face where projection candidates start")
     radial_max: Union[float, str] = "auto"  # m, or auto: estimated projection width minus radial_margin
     radial_margin: float = rng_field(0.008, 0.0, 0.1, doc="m kept clear of the projection's outer edge")

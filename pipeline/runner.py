@@ -115,20 +115,28 @@ def process_scan(scan, cfg: PipelineConfig, resolved: dict, source: str,
     # the band in file units along the file's up axis (cut before any other work on a chunk)
     up = 2 if frame.up_axis == "z" else 1
     band_file = (zlo / frame.metres_per_unit + frame.origin[up], zhi / frame.metres_per_unit + frame.origin[up])
+    # the shell face itself is most of the ring and only its position is needed: keep a bounded share of it
+    face, p_face = _face_model(local, shell, frame, jc, zlo, zhi, src.n_points, len(local), cfg.junction.face_budget)
+    keep_rng = np.random.default_rng([cfg.seed, 17])
     for n, band, strided, bad in src.stream(cfg.input.chunk_size, up, band_file, stride):
         n_read += n
         n_bad += bad
         ok = np.isfinite(band.xyz).all(axis=1)
         p = frame.to_local(band.xyz[ok] if not ok.all() else band.xyz)
         sid = band.source_id[ok] if band.source_id is not None else np.zeros(len(p), np.int64)
-        _, rho, _, _ = shell.radial(p)
+        _, rho, dx, dy = shell.radial(p)
         d = rho - shell.radius
         keep = (d > -0.15) & (d < jc.band_outside) & (p[:, 2] > zlo) & (p[:, 2] < zhi)
+        if p_face < 1.0 and keep.any():
+            dl = d - face(frame.azimuth_deg(dx, dy))
+            on_face = np.abs(dl) < face.tol
+            keep &= ~on_face | (keep_rng.random(len(p)) < p_face)
         ring.append(p[keep])
         ring_st.append(sid[keep])
         sp = strided.xyz[np.isfinite(strided.xyz).all(axis=1)]
         plot_parts.append(frame.to_local(sp))
         progress("stream", n_read, src.n_points)
+    counts["face_keep_fraction"] = round(p_face, 6)
     if n_read and n_bad / n_read > cfg.input.max_nonfinite_fraction:
         raise InputError(f"{scan}: {n_bad} of {n_read} points have NaN or infinite coordinates "
                          f"(more than input.max_nonfinite_fraction = {cfg.input.max_nonfinite_fraction})")
@@ -210,6 +218,44 @@ def run_scan(scan, out_dir, config_path=None, sets=(), progress=None) -> RunResu
     return res
 
 
+class _Face:
+    """Shell face radial offset per azimuth (from the sample), for thinning the face while streaming."""
+
+    def __init__(self, per_sector, sec_w, tol):
+        self.f, self.sec_w, self.tol = per_sector, sec_w, tol
+
+    def __call__(self, az):
+        n = len(self.f)
+        c = (np.arange(n) + 0.5) * self.sec_w
+        return np.interp(az, np.concatenate([c - 360, c, c + 360]), np.tile(self.f, 3))
+
+
+def _face_model(local, shell, frame, jc, zlo, zhi, n_total, n_sample, budget):
+    """(face model, keep probability) so that about ``budget`` shell-face points are kept from the whole scan."""
+    from .stages.junction import _fill_circular, _local_face
+
+    _, rho, dx, dy = shell.radial(local)
+    m = (local[:, 2] > zlo) & (local[:, 2] < zhi) & (np.abs(rho - shell.radius) < 0.15)
+    if m.sum() < 200:
+        return None, 1.0
+    az = frame.azimuth_deg(dx[m], dy[m])
+    n_sec = int(round(360.0 / jc.sector_deg))
+    sec_w = 360.0 / n_sec
+    sec = (az / sec_w).astype(np.int64) % n_sec
+    order = np.argsort(sec, kind="stable")
+    b = np.searchsorted(sec[order], np.arange(n_sec + 1))
+    slices = [order[b[k]:b[k + 1]] for k in range(n_sec)]
+    d0 = rho[m] - shell.radius
+    d, scale = _local_face(d0, local[m, 2], az, slices, sec_w)
+    per_sector = np.array([np.median((d0 - d)[s]) if len(s) else np.nan for s in slices])
+    per_sector = _fill_circular(per_sector)
+    # the face band is kept generously (+-3 sigma of the face, at least 3 mm): plate points lie outside it
+    tol = max(3.0 * scale, 0.003)
+    expected = (np.abs(d) < tol).sum() * n_total / max(n_sample, 1)
+    p = min(1.0, budget / max(expected, 1.0))
+    return _Face(per_sector, sec_w, tol), p
+
+
 def _check_extent(scan, local, frame, cfg):
     """Refuse a scan whose size is absurd for the declared unit, and say which unit would fit."""
     from .units import LENGTH_FACTORS
@@ -241,7 +287,10 @@ def _check_out_dir(out_dir: Path):
 
 
 def run_demo(scan, out_dir, progress, echo):
-    res = run_scan(scan, out_dir, progress=progress)
+    import importlib.resources
+
+    cfg = Path(str(importlib.resources.files("pipeline").joinpath("data/demo_config.yaml")))
+    res = run_scan(scan, out_dir, config_path=cfg, progress=progress)
     echo(f"profile: {out_dir / 'profile.csv'}")
     echo(f"summary: {out_dir / 'profile.json'}")
     if (out_dir / "report.html").exists():
@@ -250,4 +299,8 @@ def run_demo(scan, out_dir, progress, echo):
     n = res.noise
     echo(f"noise sigma {n.sigma * 1e3:.2f} mm (95 % CI {n.ci[0] * 1e3:.2f}-{n.ci[1] * 1e3:.2f}), "
          f"coverage {100 * res.profile.coverage:.1f} %, shell radius {res.shell.radius:.4f} m")
+    if res.evaluation is not None:
+        ev = res.evaluation
+        echo(f"verdict: {ev.verdict} (" + "; ".join(f"{c.name}: {c.verdict}" for c in ev.criteria) + ")")
+    echo("Results assist a qualified tank engineer or authorized inspector; they do not replace them.")
     return res

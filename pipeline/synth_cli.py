@@ -81,11 +81,6 @@ def do_demo(work_dir: Path, regenerate: bool, progress, echo):
     echo(f"scan:  {scan}")
     echo(f"truth: {truth}")
     echo(f"view:  {work_dir / 'demo_tank.view.png'}")
-    try:
-        from .runner import run_scan  # noqa: F401
-    except ImportError:
-        echo("The scan-to-profile stages are not built yet; nothing more to run.")
-        return None
     from .runner import run_demo
 
     return run_demo(scan, work_dir / "run", progress, echo)
