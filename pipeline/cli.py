@@ -49,6 +49,16 @@ def _setup_logging(verbose: int, quiet: bool):
     logging.getLogger("laspy").setLevel(logging.CRITICAL)  # its read errors reach the user as one InputError
 
 
+def _set_pairs(sets):
+    """--set KEY=VALUE pairs; malformed ones are usage errors (exit 2 with click's usage line)."""
+    from .config import parse_set_pairs
+
+    try:
+        return parse_set_pairs(sets)
+    except ValueError as exc:
+        raise click.UsageError(str(exc))
+
+
 def _fail(exc: PipelineError):
     click.echo(f"chimeline: error: {exc}", err=True)
     raise SystemExit(2)
@@ -135,13 +145,9 @@ def run(ctx, scan, config_path, sets, out_dir):
     with tank data in the config (shell_height, yield_strength) it also
     evaluates the settlement. A failed run writes nothing.
     """
-    from .config import parse_set_pairs
     from .runner import run_scan
 
-    try:
-        pairs = parse_set_pairs(sets)
-    except ValueError as exc:
-        raise click.UsageError(str(exc))
+    pairs = _set_pairs(sets)
     progress = _Progress(ctx.obj["quiet"])
     try:
         res = run_scan(scan, out_dir, config_path, pairs, progress)
@@ -175,13 +181,9 @@ def evaluate(ctx, input_csv, config_path, sets, decimate, out_dir):
     (with units, e.g. '36 ksi'), tank.youngs_modulus, tank.roof. Writes evaluation.json,
     evaluation.csv and fe_out_of_plane.csv into OUT.
     """
-    from .config import parse_set_pairs
     from .evaluate.runner import evaluate_file
 
-    try:
-        pairs = parse_set_pairs(sets)
-    except ValueError as exc:
-        raise click.UsageError(str(exc))
+    pairs = _set_pairs(sets)
     if decimate is not None:
         pairs.append(("evaluate.decimate", decimate))
     try:
@@ -232,13 +234,9 @@ def compare(run_dirs, out_dir, alpha):
 @click.pass_context
 def rerun(ctx, run_dir, sets, out_dir):
     """Run again with the earlier run's input and resolved config, plus --set changes; show what changed."""
-    from .config import parse_set_pairs
     from .rerun import rerun as do_rerun
 
-    try:
-        pairs = parse_set_pairs(sets)
-    except ValueError as exc:
-        raise click.UsageError(str(exc))
+    pairs = _set_pairs(sets)
     progress = _Progress(ctx.obj["quiet"])
     try:
         changed, headline = do_rerun(run_dir, out_dir, pairs, progress)

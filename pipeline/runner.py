@@ -232,19 +232,14 @@ class _Face:
 
 def _face_model(local, shell, frame, jc, zlo, zhi, n_total, n_sample, budget):
     """(face model, keep probability) so that about ``budget`` shell-face points are kept from the whole scan."""
-    from .stages.junction import _fill_circular, _local_face
+    from .stages.junction import _fill_circular, _local_face, sector_slices
 
     _, rho, dx, dy = shell.radial(local)
     m = (local[:, 2] > zlo) & (local[:, 2] < zhi) & (np.abs(rho - shell.radius) < 0.15)
     if m.sum() < 200:
         return None, 1.0
     az = frame.azimuth_deg(dx[m], dy[m])
-    n_sec = int(round(360.0 / jc.sector_deg))
-    sec_w = 360.0 / n_sec
-    sec = (az / sec_w).astype(np.int64) % n_sec
-    order = np.argsort(sec, kind="stable")
-    b = np.searchsorted(sec[order], np.arange(n_sec + 1))
-    slices = [order[b[k]:b[k + 1]] for k in range(n_sec)]
+    slices, sec_w = sector_slices(az, jc.sector_deg)
     d0 = rho[m] - shell.radius
     d, scale = _local_face(d0, local[m, 2], az, slices, sec_w)
     per_sector = np.array([np.median((d0 - d)[s]) if len(s) else np.nan for s in slices])

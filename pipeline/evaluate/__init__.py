@@ -60,25 +60,15 @@ def _pint_unit(u):
     return {"us_ft": "survey_foot", "ft": "foot", "m": "meter", "mm": "millimeter", "in": "inch"}[u]
 
 
-def _ranges(az, flag, step=None):
-    """Contiguous azimuth ranges where ``flag`` is true (circular)."""
+def _ranges(az, flag):
+    """Contiguous azimuth ranges (first, last azimuth) where ``flag`` is true (circular)."""
+    from ..circular import true_runs
+
     az = np.asarray(az)
-    flag = np.asarray(flag, bool)
-    if not flag.any():
-        return ()
     n = len(az)
-    if flag.all():
+    if np.all(flag):
         return ((0.0, 360.0),)
-    k0 = int(np.argmin(flag))
-    out, start = [], None
-    for j in range(1, n + 1):
-        i = (k0 + j) % n
-        if flag[i] and start is None:
-            start = i
-        if (not flag[i]) and start is not None:
-            out.append((float(az[start]), float(az[(i - 1) % n])))
-            start = None
-    return tuple(out)
+    return tuple((float(az[a]), float(az[(b - 1) % n])) for a, b in true_runs(flag))
 
 
 def _banded_verdict(value, sd, limit):

@@ -36,12 +36,8 @@ def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
     h, rho, dx, dy = shell.radial(pts)
     z = pts[:, 2]
     az = frame.azimuth_deg(dx, dy)
-    n_sec = int(round(360.0 / cfg.sector_deg))
-    sec_w = 360.0 / n_sec
-    sec = (az / sec_w).astype(np.int64) % n_sec
-    order = np.argsort(sec, kind="stable")
-    bounds = np.searchsorted(sec[order], np.arange(n_sec + 1))
-    slices = [order[bounds[k]:bounds[k + 1]] for k in range(n_sec)]
+    slices, sec_w = sector_slices(az, cfg.sector_deg)
+    n_sec = len(slices)
     # the shell face per sector (out-of-roundness, dents): radial offset of the wall above the base
     d, wall_scale = _local_face(rho - shell.radius, z, az, slices, sec_w)
     tol = max(2.5 * wall_scale, 0.004)
@@ -96,6 +92,16 @@ def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
                     prior_sector_deg=centres, prior_z=np.where(np.isfinite(prior_raw), prior, np.nan),
                     projection_width=width, radial_window=(rmin, rmax), n_ring=len(pts),
                     n_candidates=n_cand, n_gated=int(gated.sum()), base_z=base_z)
+
+
+def sector_slices(az, sector_deg):
+    """Index arrays of the points in each sector of about ``sector_deg`` (a whole number per turn), and its width."""
+    n_sec = int(round(360.0 / sector_deg))
+    sec_w = 360.0 / n_sec
+    sec = (np.asarray(az) / sec_w).astype(np.int64) % n_sec
+    order = np.argsort(sec, kind="stable")
+    bounds = np.searchsorted(sec[order], np.arange(n_sec + 1))
+    return [order[bounds[k]:bounds[k + 1]] for k in range(n_sec)], sec_w
 
 
 def _to_face(z, az, d, sel, radius, frame):

@@ -239,18 +239,8 @@ def _flag_isolated(el, se, status, k_sigma):
 
 
 def _gaps(empty: np.ndarray, w: float) -> list[tuple[float, float]]:
+    """Arcs of empty bins as (start, end) degrees; end may be below start for an arc across 0."""
+    from ..circular import true_runs
+
     n = len(empty)
-    if not empty.any():
-        return []
-    if empty.all():
-        return [(0.0, 360.0)]
-    k0 = int(np.argmin(empty))
-    out, start = [], None
-    for s in range(1, n + 1):
-        i = (k0 + s) % n
-        if empty[i] and start is None:
-            start = i
-        elif not empty[i] and start is not None:
-            out.append((round(start * w, 6), round(i * w, 6)))
-            start = None
-    return out
+    return [(round(a * w, 6), round((b if b <= n else b - n) * w, 6)) for a, b in true_runs(empty)]

@@ -40,7 +40,8 @@ def fit_shell(xyz: np.ndarray, cfg: ShellConfig, rng: np.random.Generator, *, ce
     trials_total = 0
     for _ in range(cfg.max_tanks):
         idx = np.nonzero(remaining)[0]
-        if len(idx) < max(cfg.min_inliers // 4, 10):
+        # another tank needs a real share of the candidates; the rest is clutter
+        if len(idx) < max(cfg.min_inliers // 4, 10) or (found and len(idx) < 0.1 * n_cand):
             break
         best, trials = _ransac_circle(P[idx], N[idx], cfg, rng)
         trials_total += trials

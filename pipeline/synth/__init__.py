@@ -130,21 +130,10 @@ def run_synth(scene: Scene, out_dir, *, name: str | None = None, progress=None, 
 
 def _gaps(cover: np.ndarray) -> list[dict]:
     """Contiguous runs of 0.1 degree cells with no projection-top hit, as [start, end) degrees."""
-    empty = cover == 0
-    if not empty.any():
-        return []
-    if empty.all():
-        return [{"start_deg": 0.0, "end_deg": 360.0}]
-    k = int(np.argmin(empty))  # a covered cell: start scanning after it
-    runs, start = [], None
-    for j in range(1, N_COVER + 1):
-        i = (k + j) % N_COVER
-        if empty[i] and start is None:
-            start = i
-        elif not empty[i] and start is not None:
-            runs.append({"start_deg": start * 360 / N_COVER, "end_deg": i * 360 / N_COVER})
-            start = None
-    return runs
+    from ..circular import true_runs
+
+    c = 360 / N_COVER
+    return [{"start_deg": a * c, "end_deg": (b if b <= N_COVER else b - N_COVER) * c} for a, b in true_runs(cover == 0)]
 
 
 def _truth_dict(scene, sim, stats, cover, label_counts, n_points, scan_path) -> dict:
