@@ -70,8 +70,9 @@ class ShellFit:
         """(height along axis from center, radial distance from the axis, horizontal offsets dx, dy) of points (n, 3)."""
         w = p - self.center
         h = w @ self.axis
-        q = w - np.outer(h, self.axis)
-        return h, np.hypot(q[:, 0], q[:, 1]), q[:, 0], q[:, 1]
+        qx = w[:, 0] - h * self.axis[0]
+        qy = w[:, 1] - h * self.axis[1]
+        return h, np.hypot(qx, qy), qx, qy
 
 
 @dataclass(frozen=True)

@@ -129,7 +129,7 @@ def process_scan(scan, cfg: PipelineConfig, resolved: dict, source: str,
         keep = (d > -0.15) & (d < jc.band_outside) & (p[:, 2] > zlo) & (p[:, 2] < zhi)
         if p_face < 1.0 and keep.any():
             dl = d - face(frame.azimuth_deg(dx, dy))
-            on_face = np.abs(dl) < face.tol
+            on_face = dl < face.tol  # the face and whatever lies inside it: only its position is used
             keep &= ~on_face | (keep_rng.random(len(p)) < p_face)
         ring.append(p[keep])
         ring_st.append(sid[keep])
@@ -246,7 +246,7 @@ def _face_model(local, shell, frame, jc, zlo, zhi, n_total, n_sample, budget):
     per_sector = _fill_circular(per_sector)
     # the face band is kept generously (+-3 sigma of the face, at least 3 mm): plate points lie outside it
     tol = max(3.0 * scale, 0.003)
-    expected = (np.abs(d) < tol).sum() * n_total / max(n_sample, 1)
+    expected = (d < tol).sum() * n_total / max(n_sample, 1)
     p = min(1.0, budget / max(expected, 1.0))
     return _Face(per_sector, sec_w, tol), p
 
