@@ -108,3 +108,20 @@ def test_same_seed_same_profile(simulate):
     a, b = _run(scan), _run(scan)
     np.testing.assert_array_equal(a.profile.elevation, b.profile.elevation)
     assert a.noise.sigma == b.noise.sigma
+
+
+def test_berm_foundation(simulate):
+    """A soil berm instead of a ringwall: the plate edge drops onto a slope, not a step."""
+    scan, truth = simulate("typical_tank.yaml", 707, tank={**_tank_of("typical_tank.yaml"),
+                                                            "foundation": {"type": "berm", "outer_offset": 0.3}})
+    res = _run(scan)
+    e, ok = _errors(res, truth)
+    assert ok.mean() >= 0.95
+    assert np.sqrt(np.mean(e[ok] ** 2)) <= 0.001
+    assert res.noise.sigma == pytest.approx(truth["noise"]["vertical_noise"], rel=0.15)
+
+
+def _tank_of(name):
+    from tests.conftest import scene_mapping
+
+    return scene_mapping(name)["tank"]
