@@ -37,10 +37,14 @@ def evaluation_summary(ev, units) -> dict:
     t, F, s = ev.tilt, ev.fourier, ev.survey
     d = ev.deflection
     pts = []
+    cs = ev.curvature_sparse
     for i in range(len(s.azimuth_deg)):
-        pts.append({"azimuth_deg": _n(s.azimuth_deg[i], 4), "label": s.label[i], "elevation": L(s.elevation[i]),
-                    "out_of_plane": L(ev.out_of_plane[i]), "deflection": L(d["S"][i]),
-                    "deflection_sd": L(d["S_sd"][i]), "allowable": L(d["allowable"][i]), "ratio": _n(d["ratio"][i], 4)})
+        row = {"azimuth_deg": _n(s.azimuth_deg[i], 4), "label": s.label[i], "elevation": L(s.elevation[i]),
+               "out_of_plane": L(ev.out_of_plane[i]), "deflection": L(d["S"][i]),
+               "deflection_sd": L(d["S_sd"][i]), "allowable": L(d["allowable"][i]), "ratio": _n(d["ratio"][i], 4)}
+        if cs is not None:  # second-difference curvature at the survey points, per unit length
+            row["curvature_second_difference"] = _n(cs["kappa"][i] * f, 9)
+        pts.append(row)
     tk = ev.tank
     crit = [{"name": c.name, "verdict": c.verdict, "governing": c.governing,
              "azimuth_ranges_deg": [[_n(a, 2), _n(b, 2)] for a, b in c.azimuth_ranges], "notes": list(c.reasons)}

@@ -47,6 +47,7 @@ def test_sparse_survey_outputs(tmp_path):
     assert len(js["points"]) == 10 and {"azimuth_deg", "out_of_plane", "deflection", "allowable", "ratio"} <= set(js["points"][0])
     assert js["verdict"] in ("acceptable", "exceeds", "indeterminate")
     assert js["units"] == "m"
+    assert "curvature_second_difference" in js["points"][0]
     assert (out / "evaluation.csv").read_text().count("\n") == 11
     fe = (out / "fe_out_of_plane.csv").read_text().splitlines()
     assert fe[0].startswith("#") and fe[1].startswith("azimuth_deg,arc_length")
