@@ -6,7 +6,11 @@ import io
 
 import numpy as np
 
-from ..units import to_metres
+from ..units import UNIT_LABELS, to_metres
+
+
+def _ul(units):
+    return UNIT_LABELS.get(units, units)
 
 INK = "#1d2b36"
 MEASURED = "#2f6ea5"
@@ -59,7 +63,7 @@ def plan_view(res, units):
         ax.scatter((ps[:, 0] - s.center[0]) / f, (ps[:, 1] - s.center[1]) / f, s=0.2, c=MUTED, lw=0, rasterized=True)
     t = np.linspace(0, 2 * np.pi, 721)
     r = s.radius / f
-    ax.plot(r * np.sin(t), r * np.cos(t), color=INK, lw=1.0, label=f"fitted shell r = {r:.3f} {units}")
+    ax.plot(r * np.sin(t), r * np.cos(t), color=INK, lw=1.0, label=f"fitted shell r = {r:.3f} {_ul(units)}")
     p = res.profile
     th = np.radians(p.azimuth_deg)
     for status, col, lab in (("ok", MEASURED, "profile bins: ok"), ("sparse", "#d98c00", "sparse / suspect"),
@@ -73,8 +77,8 @@ def plan_view(res, units):
     ax.annotate("0", (0, 1.15 * r), ha="center", color=INK)
     ax.annotate("90", (1.15 * r, 0), va="center", color=INK)
     ax.set_aspect("equal")
-    ax.set_xlabel(f"x - centre ({units})")
-    ax.set_ylabel(f"y - centre ({units})")
+    ax.set_xlabel(f"x - centre ({_ul(units)})")
+    ax.set_ylabel(f"y - centre ({_ul(units)})")
     ax.legend(loc="lower left", fontsize=7, markerscale=2, frameon=False)
     return _png(fig)
 
@@ -101,7 +105,7 @@ def profile_plot(res, ev, units):
     if p.gaps:
         ax.axvspan(0, 0, color=GAP, label="gap: no data, not filled")
     _az_axis(ax)
-    ax.set_ylabel(f"elevation ({units})")
+    ax.set_ylabel(f"elevation ({_ul(units)})")
     ax.legend(fontsize=7, frameon=False, ncol=2)
     return _png(fig)
 
@@ -117,7 +121,7 @@ def survey_profile_plot(ev, units):
     ax.plot(np.degrees(th), (t.a + t.b * np.cos(th) + t.c * np.sin(th)) / f, color=INK, ls="--", lw=1,
             label=f"tilt plane (R^2 = {t.r_squared:.3f})")
     _az_axis(ax)
-    ax.set_ylabel(f"elevation ({units})")
+    ax.set_ylabel(f"elevation ({_ul(units)})")
     ax.legend(fontsize=7, frameon=False)
     return _png(fig)
 
@@ -178,7 +182,7 @@ def curvature_plot(ev, units):
         ax.plot(cs["azimuth_deg"], cs["kappa"] * scale, "o", color=MEASURED, ms=4, mfc="none",
                 label="second difference at the survey points")
     _az_axis(ax)
-    ax.set_ylabel(f"curvature (1/{units})")
+    ax.set_ylabel(f"curvature (1/{_ul(units)})")
     ax.legend(fontsize=7, frameon=False, ncol=2)
     return _png(fig)
 
@@ -194,17 +198,19 @@ def arcs_plot(ev, units):
     if curve is not None:
         lab = "permissible (ILLUSTRATIVE demo table)" if table["illustrative"] else "permissible (user table)"
         ax.plot(curve[0] / f, curve[1] * k, color=LIMIT, ls="--", lw=1, label=lab)
+    deepest = sorted(ev.arcs, key=lambda a: -a["depth"])[:6]
     for a in ev.arcs:
         col = LIMIT if a["verdict"] == "exceeds" else (MUTED if a["verdict"] == "outside table" else MEASURED)
         ax.errorbar(a["arc_length"] / f, a["depth"] * k, yerr=1.96 * a["depth_sd"] * k, fmt="o", color=col, ms=4,
                     elinewidth=0.6)
-        ax.annotate(f"{a['deepest_deg']:.0f}", (a["arc_length"] / f, a["depth"] * k), fontsize=7,
-                    xytext=(3, 3), textcoords="offset points")
-    ax.set_xlabel(f"settled arc length ({units})")
+        if a in deepest:
+            ax.annotate(f"{a['deepest_deg']:.0f}", (a["arc_length"] / f, a["depth"] * k), fontsize=7,
+                        xytext=(3, 3), textcoords="offset points")
+    ax.set_xlabel(f"settled arc length ({_ul(units)})")
     ax.set_ylabel(f"depth below the chord ({u})")
     ax.grid(alpha=0.25, lw=0.5)
     ax.legend(fontsize=7, frameon=False)
-    ax.set_title("settled arcs (labels: azimuth of the deepest point, deg)", fontsize=8)
+    ax.set_title("settled arcs (labels: azimuth of the deepest point of the six deepest, deg)", fontsize=8)
     return _png(fig)
 
 
@@ -269,7 +275,7 @@ def shell_residual_plot(res, units):
                 ax.plot(np.median(r[m][sel]) * k, (b + 0.5) * 0.25 / f, "o", color=MEASURED, ms=3)
     ax.axvline(0, color=INK, lw=0.6)
     ax.set_xlabel(f"radial residual from the fitted base radius ({u})")
-    ax.set_ylabel(f"height above the junction ({units})")
+    ax.set_ylabel(f"height above the junction ({_ul(units)})")
     ax.set_title("shell residuals by height (dots: medians per 0.25 m; courses step inward)", fontsize=8)
     ax.grid(alpha=0.25, lw=0.5)
     return _png(fig)
