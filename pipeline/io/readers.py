@@ -157,16 +157,23 @@ class LasSource(ScanSource):
             raise InputError(f"{self.path}: corrupt or truncated LAS/LAZ data after {done} of "
                              f"{self.n_points} points ({_short(exc)})") from None
 
-    def stream(self, chunk_size, up_index, up_range, stride):
-        """Cut on the raw integer up coordinate first, so only the band is scaled to float."""
+    def _open(self):
+        """laspy reader; LAZ 1.4 layers other than x, y, z and the point source id are not decompressed."""
         import laspy
 
+        if not self.compressed:
+            return laspy.open(self.path)
+        sel = laspy.DecompressionSelection
+        return laspy.open(self.path, decompression_selection=sel.base() | sel.Z | sel.POINT_SOURCE_ID)
+
+    def stream(self, chunk_size, up_index, up_range, stride):
+        """Cut on the raw integer up coordinate first, so only the band is scaled to float."""
         dims = "XYZ"
         lo_i = np.floor((up_range[0] - self.offset[up_index]) / self.scale[up_index])
         hi_i = np.ceil((up_range[1] - self.offset[up_index]) / self.scale[up_index])
         done = 0
         try:
-            with laspy.open(self.path) as r:
+            with self._open() as r:
                 while done < self.n_points:
                     n = min(chunk_size, self.n_points - done)
                     pts = r.read_points(n)
@@ -210,7 +217,7 @@ class LasSource(ScanSource):
         starts = np.clip(starts + jitter, 0, self.n_points - w)
         parts = []
         try:
-            with laspy.open(self.path) as r:
+            with self._open() as r:
                 for s in np.sort(starts):
                     r.seek(int(s))
                     parts.append(self._read(r, w))
