@@ -114,3 +114,12 @@ def test_set_overrides_file(tmp_path):
     p.write_text(yaml.safe_dump({"profile": {"bin_width_deg": 2.0, "min_points": 7}}))
     cfg, _, _ = load_config(p, [("profile.bin_width_deg", 0.5)])
     assert cfg.profile.bin_width_deg == 0.5 and cfg.profile.min_points == 7
+
+
+def test_demo_config_is_packaged_verbatim():
+    import importlib.resources
+
+    packaged = importlib.resources.files("pipeline").joinpath("data/demo_config.yaml").read_text()
+    assert (ROOT / "configs" / "demo.yaml").read_text() == packaged
+    cfg, _, _ = load_config(ROOT / "configs" / "demo.yaml")
+    assert cfg.tank.tag == "GM-TK-07" and cfg.evaluate.decimate == 10
