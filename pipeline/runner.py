@@ -10,15 +10,12 @@ from __future__ import annotations
 import hashlib
 import logging
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Optional
 
 import numpy as np
-import yaml
-
-from . import __version__
-from .config import PipelineConfig, config_hash, load_config
+from .config import PipelineConfig, load_config
 from .errors import InputError, StageError
 from .io.atomic import staging_dir
 from .io.readers import open_scan

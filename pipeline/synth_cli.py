@@ -4,14 +4,12 @@ from __future__ import annotations
 import dataclasses
 import importlib.resources
 import logging
-import math
 from pathlib import Path
 
 import numpy as np
 
 from . import __version__
 from .config import parse_set_pairs
-from .errors import InputError
 
 log = logging.getLogger(__name__)
 
@@ -39,7 +37,8 @@ def do_synth(scene_file, out_dir, sets, density, points, seed, no_plot, progress
     from .synth.scanner import Simulator
 
     scene = _load(scene_file, sets, density, points, seed)
-    total = sum(Simulator(scene).ray_count(s) for s in Simulator(scene).stations)
+    sim = Simulator(scene)
+    total = sum(sim.ray_count(s) for s in sim.stations)
     done = [0]
 
     def cb(n):
@@ -56,7 +55,6 @@ def do_synth(scene_file, out_dir, sets, density, points, seed, no_plot, progress
 
         f = to_metres(scene.output.units)
         png = res.scan_path.with_name(res.scan_path.stem + ".view.png")
-        off = np.asarray(scene.output.georef_offset)
         plot_scan(png, res.sample["xyz"] / f, np.array(scene.tank.center) / f, scene.tank.radius / f,
                   station=res.sample["station"], base_z=scene.tank.base_elevation / f,
                   title=f"{scene.tank.tag} synthetic scan, {res.n_points:,} points (local frame, offset removed)",

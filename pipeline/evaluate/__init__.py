@@ -136,9 +136,7 @@ def evaluate_survey(s: SurveyData, tank: TankData, cfg: EvaluateConfig) -> Evalu
         else:
             L = float(cfg.deflection_spacing)
             how_L = f"evaluate.deflection_spacing = {L:.2f} m"
-        grid_u = np.full(len(u), np.nan)
-        grid_u[:] = u
-        S, S_sd = window_deflection(s_arc, grid_u, sd_pts, L, C)
+        S, S_sd = window_deflection(s_arc, u, sd_pts, L, C)
         L1 = L2 = np.full(len(u), L)
     else:
         S, S_sd, L1, L2 = chord_deflection(s_arc, u, sd_pts, C)
@@ -150,7 +148,6 @@ def evaluate_survey(s: SurveyData, tank: TankData, cfg: EvaluateConfig) -> Evalu
     if adequ:
         reasons.append("survey inadequate: " + "; ".join(adequ))
     force = bool(adequ) and not s.dense
-    ratio_lim = np.ones(len(S))
     crit_def, ratio, ex, ind = _criterion("deflection (B.3.2.1)", az, S / Smax, S_sd / Smax, 1.0, "S/S_max",
                                           reasons, force_indeterminate=force)
     deflection = {"S": S, "S_sd": S_sd, "allowable": Smax, "ratio": ratio, "L1": L1, "L2": L2,

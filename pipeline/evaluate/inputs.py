@@ -46,7 +46,7 @@ def read_survey(path, cfg) -> SurveyData:
     if not rows:
         raise InputError(f"{path}: no data rows below the header")
     cols = {c.strip().lower(): c for c in rows[0].keys() if c is not None}
-    units, noise, units_src = _units(path, cfg)
+    units, noise = _units(path, cfg)
     f = to_metres(units)
     dense = "status" in cols
     label, se = [], []
@@ -140,9 +140,9 @@ def _units(path: Path, cfg):
     if cfg.input_units != "auto":
         if side_units and side_units != cfg.input_units:
             raise ConfigError(f"evaluate.input_units is {cfg.input_units!r} but {side} says units {side_units!r}")
-        return cfg.input_units, noise, "config"
+        return cfg.input_units, noise
     if side_units:
-        return side_units, noise, str(side)
+        return side_units, noise
     raise ConfigError(f"{path}: the length unit is unknown: set evaluate.input_units (m, mm, ft, us_ft, in) "
                       f"or keep the run's profile.json beside the profile")
 

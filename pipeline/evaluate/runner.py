@@ -5,11 +5,8 @@ import logging
 import time
 from pathlib import Path
 
-import numpy as np
-
 from ..config import load_config
 from ..io.atomic import staging_dir
-from ..units import to_metres
 from . import decimation_study, evaluate_survey, read_survey, tank_data
 from .results import SurveyData
 

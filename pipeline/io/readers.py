@@ -126,29 +126,15 @@ class LasSource(ScanSource):
         pts = reader.read_points(n)
         if len(pts) != n:
             raise InputError(f"{self.path}: truncated: could read only {len(pts)} of {n} requested points")
-        xyz = np.column_stack([np.asarray(pts.x, dtype=np.float64), np.asarray(pts.y, dtype=np.float64),
-                               np.asarray(pts.z, dtype=np.float64)])
-        lo, hi, sc = self.bounds
-        out = (xyz < lo - 2 * sc) | (xyz > hi + 2 * sc)
-        if out.any():
-            k = int(out.any(axis=1).sum())
-            raise InputError(f"{self.path}: corrupt point data: {k} points lie outside the header's bounding box "
-                             f"(a damaged LAS/LAZ file, or a header that does not match its points)")
-        sid = np.asarray(pts.point_source_id, dtype=np.int64) if self.has_source_id else None
-        return Chunk(xyz, sid)
+        return self._scaled(pts.array)
 
     def chunks(self, chunk_size):
-        import laspy
-
         done = 0
         try:
-            with laspy.open(self.path) as r:
+            with self._open() as r:
                 while done < self.n_points:
                     n = min(chunk_size, self.n_points - done)
                     ch = self._read(r, n)
-                    if len(ch.xyz) != n:
-                        raise InputError(f"{self.path}: truncated: header says {self.n_points} points, "
-                                         f"file ends after {done + len(ch.xyz)}")
                     done += n
                     yield ch
         except InputError:
@@ -204,9 +190,7 @@ class LasSource(ScanSource):
         return Chunk(xyz, sid)
 
     def sample(self, n, rng):
-        """Read ``n_windows`` contiguous windows spread over the file (seekable, so LAZ decodes ~n points)."""
-        import laspy
-
+        """About ``n`` points in contiguous windows spread over the file (seeking, so only the windows are decoded)."""
         if n >= self.n_points:
             return _concat(list(self.chunks(max(self.n_points, 1))))
         # each window of a LAZ file costs a whole compressed chunk (typically 50 000 points) to decode

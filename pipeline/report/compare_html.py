@@ -3,8 +3,6 @@ from __future__ import annotations
 
 import html
 
-import numpy as np
-
 from .figures import BAND, INK, LIMIT, MEASURED, _fig, _png
 from .html import CSS, _img
 

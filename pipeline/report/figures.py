@@ -218,7 +218,6 @@ def noise_plot(res, units):
     import matplotlib.pyplot as plt
 
     k, u = _small(units)
-    f = to_metres(units)
     fig, (a1, a2) = plt.subplots(1, 2, figsize=(10, 3.4))
     for a in (a1, a2):
         a.spines["top"].set_visible(False)

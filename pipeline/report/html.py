@@ -4,7 +4,6 @@ from __future__ import annotations
 import base64
 import datetime
 import html
-import json
 
 import numpy as np
 import yaml

@@ -30,7 +30,7 @@ def plot_scan(path, xyz, center, radius, *, station=None, base_z=None, title="",
     r = np.hypot(dx, dy)
     az = np.degrees(np.mod(np.arctan2(dx, dy), 2 * np.pi))
     z0 = base_z if base_z is not None else np.percentile(xyz[:, 2], 5)
-    near = (np.abs(r - radius) < 0.6 * max(radius / 15, 0.05) * 15 / 15 + 0.4) & (np.abs(xyz[:, 2] - z0) < 1.5)
+    near = (np.abs(r - radius) < 0.4 + 0.6 * max(radius / 15, 0.05)) & (np.abs(xyz[:, 2] - z0) < 1.5)
     a2.scatter(az[near], xyz[near, 2], s=0.3, c=(r[near] - radius), cmap="coolwarm", vmin=-0.1, vmax=0.4,
                linewidths=0, rasterized=True)
     a2.set_xlim(0, 360)

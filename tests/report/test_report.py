@@ -110,6 +110,7 @@ def test_compare_same_setup_does_not_differ(simulate, tmp_path):
     for scan, name in ((a, "a"), (b, "b")):
         assert CliRunner().invoke(cli, ["-q", "run", str(scan), "--out", str(tmp_path / name)]).exit_code == 0
     r = CliRunner().invoke(cli, ["-q", "compare", str(tmp_path / "a"), str(tmp_path / "b"), "--out", str(tmp_path / "c")])
+    assert r.exit_code == 0, r.output
     js = json.loads((tmp_path / "c" / "compare.json").read_text())
     n = js["pairs"][0]["noise"]
     assert n["ratio_ci95"][0] <= 1.0 <= n["ratio_ci95"][1]
