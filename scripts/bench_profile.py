@@ -47,13 +47,13 @@ def main():
             scan = args.dir / f"{name}.{fmt}"
             if not scan.exists():
                 t = time.perf_counter()
-                subprocess.run([py, "-m", "pipeline.cli", "-q", "synth", str(SCENE), "--out", str(args.dir), "--points",
+                subprocess.run([py, "-m", "chimeline.cli", "-q", "synth", str(SCENE), "--out", str(args.dir), "--points",
                                 str(n), "--no-plot", "--set", f"output.format={'laz' if fmt == 'laz' else 'las14'}",
                                 "--set", "name=" + name], check=True)
                 print(f"generated {scan.name} in {time.perf_counter() - t:.0f} s", flush=True)
             ref_t, ref_rss = child([py, "-c", f"import laspy; laspy.read({str(scan)!r})"])
             out = args.dir / f"{name}_run"
-            run_t, run_rss = child([py, "-m", "pipeline.cli", "-q", "run", str(scan), "--out", str(out),
+            run_t, run_rss = child([py, "-m", "chimeline.cli", "-q", "run", str(scan), "--out", str(out),
                                     "--set", "output.plots=false"])
             import laspy
 

@@ -1,19 +1,18 @@
 """Config schema: the embedded default, unknown keys, types, ranges, --set merging."""
 import dataclasses
-from pathlib import Path
+import importlib.resources
 
 import pytest
 import yaml
 
-from pipeline.config import PipelineConfig, load_config, parse_set_pairs, to_dict, default_yaml_text
-from pipeline.errors import ConfigError
-
-ROOT = Path(__file__).resolve().parents[1]
+from chimeline.config import ChimelineConfig, default_yaml_text, load_config, parse_set_pairs, to_dict
+from chimeline.errors import ConfigError
+from tests.helpers import ROOT
 
 
 def test_embedded_default_matches_schema_and_copy():
     cfg, resolved, _ = load_config()
-    assert to_dict(cfg) == to_dict(PipelineConfig())  # the YAML states the schema's defaults
+    assert to_dict(cfg) == to_dict(ChimelineConfig())  # the YAML states the schema's defaults
     assert (ROOT / "configs" / "default.yaml").read_text() == default_yaml_text()
 
 
@@ -45,8 +44,8 @@ def test_invalid_value_names_the_dotted_key(key, value):
 def _generated_bad_values():
     """One out-of-range or not-allowed value for every ranged or choice key of every section."""
     out = []
-    cfg = PipelineConfig()
-    for sec in dataclasses.fields(PipelineConfig):
+    cfg = ChimelineConfig()
+    for sec in dataclasses.fields(ChimelineConfig):
         obj = getattr(cfg, sec.name)
         if not dataclasses.is_dataclass(obj):
             continue
@@ -117,9 +116,14 @@ def test_set_overrides_file(tmp_path):
 
 
 def test_demo_config_is_packaged_verbatim():
-    import importlib.resources
-
-    packaged = importlib.resources.files("pipeline").joinpath("data/demo_config.yaml").read_text()
+    packaged = importlib.resources.files("chimeline").joinpath("data/demo_config.yaml").read_text()
     assert (ROOT / "configs" / "demo.yaml").read_text() == packaged
     cfg, _, _ = load_config(ROOT / "configs" / "demo.yaml")
     assert cfg.tank.tag == "GM-TK-07" and cfg.evaluate.decimate == 10
+
+
+def test_load_config_from_a_mapping_names_its_source():
+    cfg, resolved, source = load_config(mapping={"profile": {"bin_width_deg": 2.0}}, mapping_source="runs/a/x.yaml")
+    assert cfg.profile.bin_width_deg == 2.0 and source == "runs/a/x.yaml"
+    with pytest.raises(ConfigError, match="runs/a/x.yaml: 'profile.bin_width_deg'"):
+        load_config(mapping={"profile": {"bin_width_deg": -2.0}}, mapping_source="runs/a/x.yaml")

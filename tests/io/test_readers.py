@@ -1,10 +1,11 @@
 """Readers: every format gives the same coordinates; units come from the LAS CRS; feet are handled."""
+import laspy
 import numpy as np
 import pytest
 
-from pipeline.config import load_config
-from pipeline.io.readers import _wkt_units, open_scan
-from pipeline.runner import process_scan
+from chimeline.config import load_config
+from chimeline.io.readers import open_scan, wkt_units
+from chimeline.workflows.run import process_scan
 
 
 def _all(src):
@@ -25,10 +26,10 @@ def test_formats_read_the_same_points(simulate, fmt):
         assert src.has_source_id
 
 
-def test_wkt_units():
-    assert _wkt_units('PROJCS["x",UNIT["US survey foot",0.304800609601219]]') == "us_ft"
-    assert _wkt_units('PROJCS["x",UNIT["foot",0.3048]]') == "ft"
-    assert _wkt_units('PROJCS["x",UNIT["metre",1]]') == "m"
+def testwkt_units():
+    assert wkt_units('PROJCS["x",UNIT["US survey foot",0.304800609601219]]') == "us_ft"
+    assert wkt_units('PROJCS["x",UNIT["foot",0.3048]]') == "ft"
+    assert wkt_units('PROJCS["x",UNIT["metre",1]]') == "m"
 
 
 @pytest.mark.parametrize("units,factor", [("ft", 0.3048), ("us_ft", 1200 / 3937)])
@@ -54,8 +55,6 @@ def test_units_conflict_warns(simulate):
 
 def test_y_up_file_gives_the_same_profile(simulate, tmp_path):
     """A y-up file (x, up, -north), common in mesh tools, gives the z-up result with input.up_axis: y."""
-    import laspy
-
     scan, _ = simulate("small_tank.yaml", 93)
     las = laspy.read(scan)
     x, y, z = np.asarray(las.x), np.asarray(las.y), np.asarray(las.z)

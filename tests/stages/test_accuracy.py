@@ -2,9 +2,11 @@
 import numpy as np
 import pytest
 
-from pipeline.config import load_config
-from pipeline.runner import process_scan
-from tests.conftest import truth_bin_means
+from chimeline.core.robust import Z95
+
+from chimeline.config import load_config
+from chimeline.workflows.run import process_scan
+from tests.helpers import scene_mapping, truth_bin_means
 
 
 def _run(scan, sets=()):
@@ -66,7 +68,7 @@ def test_standard_errors_are_honest(which, request):
     """Share of ok bins whose truth lies within +-1.96 std_error: 0.90-0.99 (registration modelled per station)."""
     res, truth = request.getfixturevalue(which)
     e, ok = _errors(res, truth)
-    inside = np.abs(e[ok]) <= 1.96 * res.profile.std_error[ok]
+    inside = np.abs(e[ok]) <= Z95 * res.profile.std_error[ok]
     assert 0.90 <= inside.mean() <= 0.99
 
 
@@ -122,6 +124,4 @@ def test_berm_foundation(simulate):
 
 
 def _tank_of(name):
-    from tests.conftest import scene_mapping
-
     return scene_mapping(name)["tank"]

@@ -2,8 +2,8 @@
 import numpy as np
 import pytest
 
-from pipeline.config import FrameConfig, InputConfig
-from pipeline.stages.frame import make_frame
+from chimeline.config import FrameConfig, InputConfig
+from chimeline.stages.frame import make_frame
 
 
 def _frame(**kw):
@@ -38,3 +38,10 @@ def test_units_scale_to_metres(units, factor):
     f = _frame(units=units)
     p = f.to_local(f.origin[None, :] + np.array([[10.0, 0, 0]]))
     assert p[0, 0] == pytest.approx(10 * factor, rel=1e-12)
+
+
+def test_file_xy_to_local_inverts_to_file_xy():
+    f = _frame(units="us_ft")
+    xy = np.array([612400.5, 5234500.25])
+    np.testing.assert_allclose(f.to_file_xy(f.file_xy_to_local(xy)), xy, rtol=0, atol=1e-9)
+    assert f.up_origin_m() == pytest.approx(40.0 * 1200 / 3937, rel=1e-15)

@@ -7,9 +7,10 @@ import laspy
 import numpy as np
 import pytest
 
-from pipeline.synth import collect, run_synth, scene_from_mapping, truth_junction
-from pipeline.synth import geometry as G
-from tests.conftest import scene_mapping
+from chimeline.synth import collect, run_synth, scene_from_mapping, truth_junction
+from chimeline.synth import geometry as G
+from chimeline.workflows.synth import demo_scene_path
+from tests.helpers import SCENES, scene_mapping
 
 US_FT = 1200.0 / 3937.0  # US survey foot, exact by definition (NIST; 1893 Mendenhall order)
 INTL_FT = 0.3048  # international foot, exact by definition (1959 agreement)
@@ -175,7 +176,4 @@ def test_same_seed_same_bytes(tmp_path):
 
 
 def test_demo_scene_is_packaged_verbatim():
-    from pipeline.synth_cli import demo_scene_path
-    from tests.conftest import SCENES
-
     assert demo_scene_path().read_text() == (SCENES / "demo_tank.yaml").read_text()

@@ -1,0 +1,4 @@
+"""python -m chimeline"""
+from .cli import main
+
+main()

@@ -1,0 +1,50 @@
+"""Command line: arguments, logging, exit codes; the only place that prints.
+
+Exit codes: 0 success; 2 bad usage, bad input or any chimeline error (one line on stderr).
+Workflows are imported lazily, so ``chimeline --help`` costs only click.
+"""
+from __future__ import annotations
+
+import click
+
+from ..notices import CAUTION
+from ..version import __version__
+from .common import setup_logging
+from .compare import compare
+from .demo import demo
+from .evaluate import evaluate
+from .rerun import rerun
+from .run import run
+from .synth import synth
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]}, help=f"""Tank settlement from laser scans:
+junction profile, noise, and evaluation.
+
+\b
+Typical use:
+  chimeline demo                         make a synthetic demo scan and process it
+  chimeline synth SCENE.yaml --out DIR   simulate a scan with known truth
+  chimeline run SCAN --out DIR           scan -> junction profile (+ evaluation)
+  chimeline evaluate PROFILE.csv --out DIR   settlement evaluation of a profile or survey
+  chimeline compare RUN_A RUN_B --out DIR    QA: noise and profile of two runs
+  chimeline rerun RUN --set KEY=VALUE --out DIR   run again with changes
+
+Caution: {CAUTION}
+""")
+@click.version_option(__version__, prog_name="chimeline")
+@click.option("-v", "--verbose", count=True, help="More log detail.")
+@click.option("-q", "--quiet", is_flag=True, help="Warnings and errors only; no progress bars.")
+@click.pass_context
+def cli(ctx, verbose, quiet):
+    setup_logging(verbose, quiet)
+    ctx.obj = {"quiet": quiet}
+
+
+for _command in (demo, synth, run, evaluate, compare, rerun):
+    cli.add_command(_command)
+
+
+def main(argv=None):
+    """Console entry point."""
+    cli.main(args=argv, prog_name="chimeline")

@@ -1,0 +1,4 @@
+"""python -m chimeline.cli"""
+from . import main
+
+main()

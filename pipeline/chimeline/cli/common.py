@@ -1,0 +1,89 @@
+"""What every command shares: logging set-up, the progress display, --config/--set/--out options, and the
+single error funnel (one line on stderr, exit code 2)."""
+from __future__ import annotations
+
+import logging
+import sys
+from contextlib import contextmanager
+from pathlib import Path
+
+import click
+
+from ..config import parse_set_pairs
+from ..errors import ChimelineError
+
+EXIT_ERROR = 2  # bad usage, bad input or any chimeline error; click's usage errors use the same code
+
+
+class Progress:
+    """Progress callback: a tqdm bar on a terminal, nothing (INFO lines come from the workflows) otherwise."""
+
+    def __init__(self, quiet: bool):
+        self.bar = None
+        self.enabled = not quiet and sys.stderr.isatty()
+
+    def __call__(self, stage: str, done: int, total: int | None):
+        if not self.enabled:
+            return
+        from tqdm import tqdm
+
+        if self.bar is None or self.bar.desc != stage:
+            if self.bar is not None:
+                self.bar.close()
+            self.bar = tqdm(total=total, desc=stage, unit="pt", unit_scale=True, leave=False, file=sys.stderr)
+        self.bar.n = done
+        self.bar.refresh()
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+def setup_logging(verbose: int, quiet: bool):
+    level = logging.WARNING if quiet else (logging.DEBUG if verbose > 0 else logging.INFO)
+    logging.basicConfig(level=level, format="%(levelname)s %(message)s", stream=sys.stderr, force=True)
+    logging.getLogger("matplotlib").setLevel(logging.WARNING)
+    logging.getLogger("PIL").setLevel(logging.WARNING)
+    logging.getLogger("laspy").setLevel(logging.CRITICAL)  # its read errors reach the user as one InputError
+
+
+def set_pairs(sets):
+    """--set KEY=VALUE pairs; malformed ones are usage errors (exit 2 with click's usage line)."""
+    try:
+        return parse_set_pairs(sets)
+    except ValueError as exc:
+        raise click.UsageError(str(exc))
+
+
+def fail(exc: ChimelineError):
+    """The error funnel: one line on stderr and exit code 2."""
+    click.echo(f"chimeline: error: {exc}", err=True)
+    raise SystemExit(EXIT_ERROR)
+
+
+@contextmanager
+def reported(progress: Progress | None = None):
+    """Run a workflow; a ChimelineError becomes one stderr line and exit code 2 (progress cleared first)."""
+    try:
+        yield
+    except ChimelineError as exc:
+        if progress is not None:
+            progress.close()
+        fail(exc)
+    finally:
+        if progress is not None:
+            progress.close()
+
+
+def config_option(help_text="YAML config (default: the embedded one, copy in configs/default.yaml)."):
+    return click.option("--config", "config_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
+                        help=help_text)
+
+
+def set_option(help_text="Override a config key, e.g. profile.bin_width_deg=0.5 (repeatable)."):
+    return click.option("--set", "sets", multiple=True, metavar="KEY=VALUE", help=help_text)
+
+
+def out_option(help_text="Output folder."):
+    return click.option("--out", "out_dir", required=True, type=click.Path(path_type=Path), help=help_text)

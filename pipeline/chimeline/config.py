@@ -1,0 +1,444 @@
+"""Configuration: the schema of every section, loading, ``--set`` merging, validation.
+
+Every section is a frozen dataclass named after its stage. Field metadata carries
+the allowed range (``min``/``max``, inclusive unless ``min_open``) and allowed
+strings (``choices``); ``_build`` turns a YAML mapping into the dataclasses and
+refuses unknown keys (with the nearest valid key), wrong types and out-of-range
+values, always naming the file and the dotted key.
+"""
+from __future__ import annotations
+
+import copy
+import dataclasses
+import datetime
+import difflib
+import importlib.resources
+import types
+import typing
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Literal, Optional, Union
+
+import yaml
+
+from .core.hashing import sha256_text
+from .core.mapping import deep_update
+from .errors import ConfigError
+
+# ---------------------------------------------------------------------------
+# generic dataclass builder (also used by the simulator's scene schema)
+
+
+def rng_field(default, lo=None, hi=None, *, lo_open=False, doc=""):
+    """A numeric field with an allowed range."""
+    md = {"min": lo, "max": hi, "min_open": lo_open, "doc": doc}
+    if isinstance(default, (list, dict)):
+        return field(default_factory=lambda: copy.deepcopy(default), metadata=md)
+    return field(default=default, metadata=md)
+
+
+def choice_field(default, choices, doc=""):
+    return field(default=default, metadata={"choices": tuple(choices), "doc": doc})
+
+
+def _type_name(tp) -> str:
+    origin = typing.get_origin(tp)
+    if tp is float:
+        return "a number"
+    if tp is int:
+        return "an int"
+    if tp is bool:
+        return "true or false"
+    if tp is str:
+        return "a string"
+    if origin in (list, tuple):
+        args = typing.get_args(tp)
+        return f"a list of {_type_name(args[0]).removeprefix('a ').removeprefix('an ')}s" if args else "a list"
+    if dataclasses.is_dataclass(tp):
+        return "a mapping"
+    return str(tp)
+
+
+def _range_text(md) -> str:
+    lo, hi = md.get("min"), md.get("max")
+    if lo is not None and hi is not None:
+        return f" in [{lo}, {hi}]"
+    if lo is not None:
+        return f" {'>' if md.get('min_open') else '>='} {lo}"
+    if hi is not None:
+        return f" <= {hi}"
+    return ""
+
+
+def _fail(source, key, what, value):
+    raise ConfigError(f"{source}: '{key}' must be {what}, got {value!r}")
+
+
+def _convert(tp, value, key, source, md):
+    origin = typing.get_origin(tp)
+    args = typing.get_args(tp)
+    if origin in (Union, types.UnionType):
+        non_none = [a for a in args if a is not type(None)]
+        if value is None and len(non_none) < len(args):
+            return None
+        errors = []
+        for a in non_none:
+            try:
+                return _convert(a, value, key, source, md)
+            except ConfigError as exc:
+                errors.append(exc)
+        raise errors[0]
+    if origin is Literal:
+        if value not in args:
+            _fail(source, key, "one of " + ", ".join(repr(a) for a in args), value)
+        return value
+    if dataclasses.is_dataclass(tp):
+        if value is None:
+            value = {}
+        if not isinstance(value, dict):
+            _fail(source, key, "a mapping", value)
+        return build(tp, value, key, source)
+    if origin in (list, tuple):
+        if not isinstance(value, (list, tuple)):
+            _fail(source, key, _type_name(tp), value)
+        if origin is tuple and args and args[-1] is not Ellipsis:
+            if len(value) != len(args):
+                _fail(source, key, f"a list of {len(args)} values", value)
+            return tuple(_convert(a, v, f"{key}[{i}]", source, md) for i, (a, v) in enumerate(zip(args, value)))
+        inner = args[0] if args else Any
+        out = [_convert(inner, v, f"{key}[{i}]", source, md) for i, v in enumerate(value)]
+        return tuple(out)
+    if tp is Any:
+        return value
+    if tp is bool:
+        if not isinstance(value, bool):
+            _fail(source, key, "true or false", value)
+        return value
+    if tp in (int, float):
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            if isinstance(value, str):
+                try:
+                    value = float(value) if tp is float else int(value)
+                except ValueError:
+                    _fail(source, key, _type_name(tp) + _range_text(md), value)
+            else:
+                _fail(source, key, _type_name(tp) + _range_text(md), value)
+        if tp is int and isinstance(value, float):
+            if not value.is_integer():
+                _fail(source, key, "an int" + _range_text(md), value)
+            value = int(value)
+        value = tp(value)
+        if tp is float and value != value:
+            _fail(source, key, "a finite number" + _range_text(md), value)
+        lo, hi = md.get("min"), md.get("max")
+        ok = True
+        if lo is not None:
+            ok = value > lo if md.get("min_open") else value >= lo
+        if hi is not None and value > hi:
+            ok = False
+        if not ok:
+            _fail(source, key, _type_name(tp) + _range_text(md), value)
+        return value
+    if tp is str:
+        if isinstance(value, datetime.date):  # YAML reads 2026-06-15 as a date
+            value = value.isoformat()
+        if not isinstance(value, str):
+            _fail(source, key, "a string", value)
+        ch = md.get("choices")
+        if ch and value not in ch:
+            near = difflib.get_close_matches(value, ch, n=1)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
+            raise ConfigError(f"{source}: '{key}' must be one of {', '.join(ch)}, got {value!r}{hint}")
+        return value
+    return value
+
+
+def build(cls, mapping: dict, prefix: str, source: str):
+    """Build dataclass ``cls`` from ``mapping``; errors name ``source`` and dotted keys."""
+    hints = typing.get_type_hints(cls)
+    fields = {f.name: f for f in dataclasses.fields(cls) if f.init}
+    for k in mapping:
+        if k not in fields:
+            near = difflib.get_close_matches(str(k), list(fields), n=1)
+            hint = f" (did you mean '{_join(prefix, near[0])}'?)" if near else ""
+            raise ConfigError(f"{source}: unknown key '{_join(prefix, k)}'{hint}")
+    kwargs = {}
+    for name, f in fields.items():
+        key = _join(prefix, name)
+        if name in mapping:
+            kwargs[name] = _convert(hints[name], mapping[name], key, source, f.metadata)
+        elif dataclasses.is_dataclass(hints[name]) and f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING:
+            kwargs[name] = build(hints[name], {}, key, source)
+        elif f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING:
+            raise ConfigError(f"{source}: missing required key '{key}'")
+    obj = cls(**kwargs)
+    check = getattr(obj, "_check", None)
+    if check is not None:
+        check(prefix, source)
+    return obj
+
+
+def _join(prefix, name):
+    return f"{prefix}.{name}" if prefix else str(name)
+
+
+def to_dict(obj) -> Any:
+    """Dataclasses to plain YAML/JSON-safe structures (tuples become lists)."""
+    if dataclasses.is_dataclass(obj):
+        return {f.name: to_dict(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+    if isinstance(obj, (list, tuple)):
+        return [to_dict(v) for v in obj]
+    if isinstance(obj, dict):
+        return {k: to_dict(v) for k, v in obj.items()}
+    return obj
+
+
+def load_yaml(path: Path) -> dict:
+    """Read a YAML mapping; errors name the file."""
+    path = Path(path)
+    if not path.exists():
+        raise ConfigError(f"{path}: config file not found")
+    try:
+        data = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}" if mark else ""
+        raise ConfigError(f"{path}: not valid YAML{where}: {getattr(exc, 'problem', exc)}") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"{path}: cannot read config: {exc}") from None
+    if data is None:
+        data = {}
+    if not isinstance(data, dict):
+        raise ConfigError(f"{path}: the config must be a mapping of sections, got {type(data).__name__}")
+    return data
+
+
+def parse_set_pairs(pairs) -> list[tuple[str, Any]]:
+    """``a.b=value`` strings to (dotted key, YAML-parsed value); raises ValueError if malformed."""
+    out = []
+    for p in pairs or ():
+        if "=" not in p:
+            raise ValueError(f"--set expects KEY=VALUE with a dotted key, got {p!r}")
+        k, v = p.split("=", 1)
+        k = k.strip()
+        if not k or any(not part for part in k.split(".")):
+            raise ValueError(f"--set expects KEY=VALUE with a dotted key, got {p!r}")
+        try:
+            val = yaml.safe_load(v) if v.strip() else None
+        except yaml.YAMLError:
+            val = v
+        out.append((k, val))
+    return out
+
+
+def merge_sets(mapping: dict, sets) -> dict:
+    """Merge (dotted key, value) overrides into a copy of ``mapping``."""
+    out = copy.deepcopy(mapping)
+    for key, val in sets:
+        node = out
+        parts = key.split(".")
+        for part in parts[:-1]:
+            nxt = node.get(part)
+            if nxt is None:
+                nxt = node[part] = {}
+            if not isinstance(nxt, dict):
+                raise ConfigError(f"--set {key}: '{part}' is not a section")
+            node = nxt
+        node[parts[-1]] = val
+    return out
+
+
+def config_hash(mapping: dict) -> str:
+    return sha256_text(yaml.safe_dump(mapping, sort_keys=True))
+
+
+def default_yaml_text() -> str:
+    return importlib.resources.files("chimeline").joinpath("data/default.yaml").read_text(encoding="utf-8")
+
+
+def default_mapping() -> dict:
+    return yaml.safe_load(default_yaml_text()) or {}
+
+
+# ---------------------------------------------------------------------------
+# the pipeline's schema: one section per stage
+
+
+@dataclass(frozen=True)
+class InputConfig:
+    units: str = choice_field("auto", ("auto", "m", "ft", "us_ft", "mm"),
+                              doc="length unit of the scan; auto: the LAS CRS unit if present, else m")
+    up_axis: str = choice_field("z", ("z", "y"), doc="which file axis points up")
+    chunk_size: int = rng_field(1_000_000, 10_000, 100_000_000, doc="points read per chunk")
+    max_nonfinite_fraction: float = rng_field(0.01, 0.0, 1.0, doc="refuse the scan above this share of NaN/inf points")
+
+
+@dataclass(frozen=True)
+class FrameConfig:
+    origin: Optional[tuple[float, float, float]] = None  # scan units; default: rounded median of the sample
+    azimuth_reference_deg: float = rng_field(0.0, -360.0, 360.0, doc="direction of azimuth 0, degrees clockwise from +Y")
+    azimuth_direction: str = choice_field("cw", ("cw", "ccw"))
+
+
+@dataclass(frozen=True)
+class TankConfig:
+    tag: str = ""
+    survey_date: str = ""
+    center_hint: Optional[tuple[float, float]] = None  # scan units (with any georeferencing offset)
+    diameter: Optional[Union[float, str]] = None  # nominal; number in scan units or "100 ft"
+    shell_height: Optional[Union[float, str]] = None
+    yield_strength: Optional[Union[float, str]] = None  # "36 ksi", "250 MPa"
+    youngs_modulus: Union[float, str] = "200 GPa"
+    roof: str = choice_field("fixed", ("fixed", "floating", "none"))
+
+
+@dataclass(frozen=True)
+class ShellConfig:
+    sample_points: int = rng_field(200_000, 5_000, 20_000_000, doc="points read for detection")
+    voxel_size: float = rng_field(0.05, 0.001, 2.0, doc="m, downsampling before normals")
+    normal_radius: float = rng_field(0.25, 0.01, 5.0, doc="m, neighbourhood for normals")
+    max_normal_z: float = rng_field(0.3, 0.01, 1.0, doc="|n_z| of shell candidates (near-horizontal normals)")
+    min_radius: float = rng_field(1.5, 0.1, 1000.0, doc="m")
+    max_radius: float = rng_field(60.0, 0.2, 1000.0, doc="m")
+    max_trials: int = rng_field(1500, 10, 1_000_000, doc="RANSAC trials per tank")
+    inlier_tolerance: float = rng_field(0.03, 0.001, 1.0, doc="m, radial distance of RANSAC inliers")
+    min_inliers: int = rng_field(500, 10, 10_000_000)
+    min_height: float = rng_field(1.0, 0.1, 100.0, doc="m, vertical extent a shell must show")
+    max_tanks: int = rng_field(4, 1, 20, doc="cylinders to look for")
+    max_tilt_deg: float = rng_field(2.0, 0.0, 20.0)
+    base_fit_height: float = rng_field(0.5, 0.2, 5.0, doc="m above the base used for the radius at the base")
+
+    def _check(self, prefix, source):
+        if self.min_radius >= self.max_radius:
+            raise ConfigError(f"{source}: '{_join(prefix, 'min_radius')}' ({self.min_radius}) must be below "
+                              f"'{_join(prefix, 'max_radius')}' ({self.max_radius})")
+
+
+@dataclass(frozen=True)
+class JunctionConfig:
+    band_below: float = rng_field(0.3, 0.05, 10.0, doc="m below the shell foot kept while streaming")
+    band_above: float = rng_field(0.6, 0.2, 10.0, doc="m above the shell foot kept while streaming")
+    band_outside: float = rng_field(0.15, 0.05, 5.0, doc="m outside the shell face kept while streaming")
+    face_budget: int = rng_field(600_000, 10_000, 100_000_000, doc="shell-face points kept from the whole scan")
+    radial_min: float = rng_field(0.006, 0.0, 0.5, doc="m outside the shell face where projection candidates start")
+    radial_max: Union[float, str] = "auto"  # m, or auto: estimated projection width minus radial_margin
+    radial_margin: float = rng_field(0.008, 0.0, 0.1, doc="m kept clear of the projection's outer edge")
+    radial_max_limit: float = rng_field(0.12, 0.01, 1.0, doc="m, largest projection width considered by auto")
+    sector_deg: float = rng_field(5.0, 0.5, 45.0, doc="sector for the coarse junction prior")
+    search_window: float = rng_field(0.08, 0.005, 1.0, doc="m around the shell foot searched for the plate")
+    height_gate: float = rng_field(0.025, 0.002, 0.5, doc="m around the prior kept as junction candidates")
+
+    def _check(self, prefix, source):
+        if isinstance(self.radial_max, str) and self.radial_max != "auto":
+            raise ConfigError(f"{source}: '{_join(prefix, 'radial_max')}' must be a number (m) or 'auto', "
+                              f"got {self.radial_max!r}")
+        if not isinstance(self.radial_max, str) and self.radial_max <= self.radial_min:
+            raise ConfigError(f"{source}: '{_join(prefix, 'radial_max')}' ({self.radial_max}) must exceed "
+                              f"'{_join(prefix, 'radial_min')}' ({self.radial_min})")
+
+
+@dataclass(frozen=True)
+class ProfileConfig:
+    bin_width_deg: float = rng_field(1.0, 0.05, 45.0)
+    bin_arc_length: Optional[float] = None  # m along the shell; overrides bin_width_deg
+    min_points: int = rng_field(4, 1, 10_000, doc="kept points for an 'ok' bin")
+    reject_k: float = rng_field(3.0, 1.5, 20.0, doc="robust z-score beyond which points are rejected")
+    max_iterations: int = rng_field(10, 1, 100)
+    max_reject_fraction: float = rng_field(0.5, 0.0, 1.0, doc="bins rejecting more are 'suspect'")
+    min_coverage: float = rng_field(0.5, 0.0, 1.0, doc="share of the circumference with ok bins")
+    on_low_coverage: str = choice_field("refuse", ("refuse", "flag"))
+    station_leveling: str = choice_field("adjust", ("adjust", "report"),
+                                         doc="remove relative station vertical offsets, or only report them")
+
+
+@dataclass(frozen=True)
+class NoiseConfig:
+    confidence: float = rng_field(0.95, 0.5, 0.999)
+    pair_max_gap_deg: float = rng_field(0.2, 0.001, 5.0, doc="azimuth gap of neighbour pairs in the difference estimator")
+    agreement_p: float = rng_field(0.01, 0.0, 0.5, doc="estimators disagree when the F test p-value is below this")
+    agreement_ratio: float = rng_field(0.2, 0.0, 5.0, doc="... and the sigma ratio differs from 1 by more")
+
+
+@dataclass(frozen=True)
+class EvaluateConfig:
+    input_units: str = choice_field("auto", ("auto", "m", "mm", "ft", "us_ft", "in"),
+                                    doc="length unit of an evaluate input; auto: from the sibling profile.json")
+    tilt_rule: str = choice_field("p_value", ("p_value", "r_squared"),
+                                  doc="what decides that a tilt plane exists: the F test or the standard's R^2")
+    alpha: float = rng_field(0.05, 1e-6, 0.5, doc="significance level of the tests")
+    r2_min: float = rng_field(0.9, 0.0, 1.0, doc="the standard's R^2 acceptance of the cosine fit")
+    order_selection: str = choice_field("auto", ("auto", "nested_f", "bic", "fixed"),
+                                        doc="auto: BIC for dense profiles, nested F tests for sparse surveys")
+    order: Optional[int] = None  # the Fourier order with order_selection: fixed
+    max_order: int = rng_field(30, 1, 500, doc="cap on the Fourier order")
+    min_wavelength: float = rng_field(3.0, 0.1, 1000.0, doc="m of arc: shortest Fourier wavelength fitted")
+    deflection_spacing: Union[float, str] = "auto"  # m of arc between a point and its neighbours (dense), or auto
+    survey_std_error: float = rng_field(0.0015, 0.0, 0.1, doc="m, 1 sigma assumed for survey readings without one")
+    curvature_step_deg: float = rng_field(0.5, 0.01, 10.0, doc="azimuth step of the curvature check")
+    arc_table: Optional[str] = None  # YAML permissible settlement table; None: the packaged illustrative demo table
+    survey_center: Optional[tuple[float, float]] = None  # for x y z surveys; None: fitted circle
+    start_azimuth_deg: float = rng_field(0.0, 0.0, 360.0, doc="azimuth of point 1 in numbered surveys")
+    decimate: Optional[int] = None  # points of a simulated conventional survey taken from a dense profile
+    decimate_start_deg: Union[float, str] = 0.0  # or "all": every start within one spacing
+
+    def _check(self, prefix, source):
+        if self.order_selection == "fixed" and self.order is None:
+            raise ConfigError(f"{source}: '{_join(prefix, 'order')}' is required with order_selection: fixed")
+        if self.order is not None and not (isinstance(self.order, int) and 1 <= self.order <= 500):
+            raise ConfigError(f"{source}: '{_join(prefix, 'order')}' must be an int in [1, 500], got {self.order!r}")
+        if isinstance(self.deflection_spacing, str) and self.deflection_spacing != "auto":
+            raise ConfigError(f"{source}: '{_join(prefix, 'deflection_spacing')}' must be a number (m) or 'auto', "
+                              f"got {self.deflection_spacing!r}")
+        if not isinstance(self.deflection_spacing, str) and self.deflection_spacing <= 0:
+            raise ConfigError(f"{source}: '{_join(prefix, 'deflection_spacing')}' must be > 0, got "
+                              f"{self.deflection_spacing!r}")
+        if self.decimate is not None and not (isinstance(self.decimate, int) and 4 <= self.decimate <= 360):
+            raise ConfigError(f"{source}: '{_join(prefix, 'decimate')}' must be an int in [4, 360], got {self.decimate!r}")
+        d = self.decimate_start_deg
+        if isinstance(d, str) and d != "all":
+            raise ConfigError(f"{source}: '{_join(prefix, 'decimate_start_deg')}' must be degrees or 'all', got {d!r}")
+
+
+@dataclass(frozen=True)
+class OutputConfig:
+    length_unit: str = choice_field("input", ("input", "m", "mm", "ft", "us_ft", "in"))
+    plots: bool = True
+
+
+@dataclass(frozen=True)
+class ChimelineConfig:
+    """The whole run configuration: one section per stage plus the tank data and the evaluation."""
+
+    seed: int = rng_field(0, 0, 2**63 - 1)
+    input: InputConfig = field(default_factory=InputConfig)
+    frame: FrameConfig = field(default_factory=FrameConfig)
+    tank: TankConfig = field(default_factory=TankConfig)
+    shell: ShellConfig = field(default_factory=ShellConfig)
+    junction: JunctionConfig = field(default_factory=JunctionConfig)
+    profile: ProfileConfig = field(default_factory=ProfileConfig)
+    noise: NoiseConfig = field(default_factory=NoiseConfig)
+    output: OutputConfig = field(default_factory=OutputConfig)
+    evaluate: EvaluateConfig = field(default_factory=EvaluateConfig)
+
+
+def load_config(path=None, sets=(), *, mapping: dict | None = None,
+                mapping_source: str = "") -> tuple[ChimelineConfig, dict, str]:
+    """Resolve the config: embedded default, then the file (or an already loaded ``mapping``), then --set pairs.
+
+    Returns the validated config, the resolved mapping and the source label used in messages.
+    """
+    base = default_mapping()
+    source = "default config"
+    if path is not None:
+        user = load_yaml(path)
+        base = deep_update(base, user)
+        source = str(path)
+    elif mapping is not None:
+        base = deep_update(base, mapping)
+        source = mapping_source or "config"
+    if sets:
+        base = merge_sets(base, sets)
+        source = f"{source} with --set" if path is None else source
+    cfg = build(ChimelineConfig, base, "", source)
+    return cfg, to_dict(cfg), source
+

@@ -1,0 +1,206 @@
+"""Everything in a run folder, typed: one writer format and one reader for profile.csv, residuals.csv,
+profile.json, config.resolved.yaml and evaluation.json. ``compare``, ``rerun`` and ``evaluate`` read run
+folders only through here.
+
+CSV lengths are in the run's output unit (``units`` in profile.json); the reader returns them in that unit
+and says which, with ``metres_per_unit`` to convert.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Optional
+
+import numpy as np
+import yaml
+
+from ..errors import InputError
+from ..units import LENGTH_FACTORS
+
+PROFILE_CSV = "profile.csv"
+PROFILE_JSON = "profile.json"
+RESIDUALS_CSV = "residuals.csv"
+CONFIG_YAML = "config.resolved.yaml"
+EVALUATION_JSON = "evaluation.json"
+
+PROFILE_COLUMNS = ("azimuth_deg", "elevation", "std_error", "n_points", "n_rejected", "n_stations", "n_eff",
+                   "scale", "status")
+RESIDUAL_COLUMNS = ("azimuth_deg", "station", "bin", "residual")
+
+
+def _fmt(v, spec):
+    return format(v, spec) if np.isfinite(v) else ""
+
+
+@dataclass(frozen=True)
+class ProfileTable:
+    """profile.csv: one row per azimuth bin; lengths in the run's output unit."""
+
+    azimuth_deg: np.ndarray  # (n_bins,) bin centres
+    elevation: np.ndarray  # (n_bins,) nan where the bin has no value
+    std_error: np.ndarray  # (n_bins,) 1 sigma, nan where no value
+    n_points: np.ndarray  # (n_bins,) int
+    n_rejected: np.ndarray  # (n_bins,) int
+    n_stations: np.ndarray  # (n_bins,) int
+    n_eff: np.ndarray  # (n_bins,) nan where no value
+    scale: np.ndarray  # (n_bins,) robust scale of the kept points, nan where fewer than two
+    status: np.ndarray  # (n_bins,) str: ok, sparse, suspect, empty
+
+    def to_csv(self) -> str:
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        w.writerow(PROFILE_COLUMNS)
+        for i in range(len(self.azimuth_deg)):
+            fin = np.isfinite(self.elevation[i])
+            w.writerow([f"{self.azimuth_deg[i]:.4f}", f"{self.elevation[i]:.5f}" if fin else "",
+                        f"{self.std_error[i]:.6f}" if fin else "", int(self.n_points[i]), int(self.n_rejected[i]),
+                        int(self.n_stations[i]), _fmt(self.n_eff[i], ".2f"), _fmt(self.scale[i], ".6f"),
+                        self.status[i]])
+        return buf.getvalue()
+
+    @classmethod
+    def from_csv(cls, text: str, source) -> "ProfileTable":
+        rows = _rows(text, source, PROFILE_COLUMNS)
+        num = lambda c, i, r: _cell(r, c, i, source, empty_ok=True)  # noqa: E731
+        cols = {c: np.array([num(c, i, r) for i, r in enumerate(rows, start=2)]) for c in PROFILE_COLUMNS[:-1]}
+        return cls(azimuth_deg=cols["azimuth_deg"], elevation=cols["elevation"], std_error=cols["std_error"],
+                   n_points=np.nan_to_num(cols["n_points"]).astype(int),
+                   n_rejected=np.nan_to_num(cols["n_rejected"]).astype(int),
+                   n_stations=np.nan_to_num(cols["n_stations"]).astype(int), n_eff=cols["n_eff"],
+                   scale=cols["scale"], status=np.array([r["status"].strip() for r in rows], dtype=str))
+
+
+@dataclass(frozen=True)
+class ResidualTable:
+    """residuals.csv: kept junction points' residuals about their bin line, per station (output unit)."""
+
+    azimuth_deg: np.ndarray  # (m,)
+    station: np.ndarray  # (m,) int
+    bin: np.ndarray  # (m,) int
+    residual: np.ndarray  # (m,)
+
+    def to_csv(self) -> str:
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        w.writerow(RESIDUAL_COLUMNS)
+        for a, s, b, r in zip(self.azimuth_deg, self.station, self.bin, self.residual):
+            w.writerow([f"{a:.4f}", int(s), int(b), f"{r:.7f}"])
+        return buf.getvalue()
+
+    @classmethod
+    def from_csv(cls, text: str, source) -> "ResidualTable":
+        rows = _rows(text, source, RESIDUAL_COLUMNS)
+        col = {c: np.array([_cell(r, c, i, source) for i, r in enumerate(rows, start=2)]) for c in RESIDUAL_COLUMNS}
+        return cls(azimuth_deg=col["azimuth_deg"], station=col["station"].astype(int), bin=col["bin"].astype(int),
+                   residual=col["residual"])
+
+
+def _rows(text, source, columns):
+    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    if not lines:
+        raise InputError(f"{source}: the file is empty")
+    rows = list(csv.DictReader(lines))
+    missing = [c for c in columns if c not in (rows[0].keys() if rows else next(csv.reader(lines[:1])))]
+    if missing:
+        raise InputError(f"{source}: missing column(s) {', '.join(missing)}")
+    return rows
+
+
+def _cell(row, col, i, source, empty_ok=False):
+    v = (row.get(col) or "").strip()
+    if v == "" and empty_ok:
+        return np.nan
+    try:
+        return float(v)
+    except ValueError:
+        raise InputError(f"{source}: row {i}: '{col}' is not a number: {v[:40]!r}") from None
+
+
+def read_json(path) -> dict:
+    path = Path(path)
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read: {exc}") from None
+    except ValueError as exc:
+        raise InputError(f"{path}: not valid JSON ({str(exc)[:120]})") from None
+    if not isinstance(data, dict):
+        raise InputError(f"{path}: expected a JSON object, got {type(data).__name__}")
+    return data
+
+
+def read_summary(path) -> dict:
+    """profile.json, with its length unit checked."""
+    js = read_json(path)
+    units = js.get("units")
+    if units not in LENGTH_FACTORS:
+        raise InputError(f"{path}: 'units' must be one of {', '.join(LENGTH_FACTORS)}, got {str(units)[:40]!r}")
+    return js
+
+
+@dataclass(frozen=True)
+class RunFolder:
+    """A finished ``chimeline run`` folder, read back."""
+
+    path: Path
+    summary: dict  # profile.json
+    config: dict  # config.resolved.yaml
+    profile: ProfileTable
+    residuals: Optional[ResidualTable]
+    evaluation: Optional[dict]  # evaluation.json, when the run evaluated
+
+    @property
+    def units(self) -> str:
+        return self.summary["units"]
+
+    @property
+    def metres_per_unit(self) -> float:
+        return LENGTH_FACTORS[self.units]
+
+    def get(self, *keys, default=None):
+        """A nested value of profile.json, or ``default``."""
+        node = self.summary
+        for k in keys:
+            if not isinstance(node, dict) or k not in node:
+                return default
+            node = node[k]
+        return node
+
+
+def read_run_folder(run_dir, *, need_config: bool = False) -> RunFolder:
+    d = Path(run_dir)
+    pj = d / PROFILE_JSON
+    if not d.is_dir() or not pj.exists():
+        raise InputError(f"{d}: not a chimeline run folder (no {PROFILE_JSON})")
+    summary = read_summary(pj)
+    pc = d / PROFILE_CSV
+    if not pc.exists():
+        raise InputError(f"{d}: not a complete run folder (no {PROFILE_CSV})")
+    profile = ProfileTable.from_csv(_text(pc), pc)
+    rp = d / RESIDUALS_CSV
+    residuals = ResidualTable.from_csv(_text(rp), rp) if rp.exists() else None
+    cp = d / CONFIG_YAML
+    config = {}
+    if cp.exists():
+        try:
+            config = yaml.safe_load(_text(cp)) or {}
+        except yaml.YAMLError as exc:
+            raise InputError(f"{cp}: not valid YAML ({str(exc).splitlines()[0][:120]})") from None
+        if not isinstance(config, dict):
+            raise InputError(f"{cp}: expected a mapping of config sections")
+    elif need_config:
+        raise InputError(f"{d}: not a chimeline run folder (no {CONFIG_YAML})")
+    ep = d / EVALUATION_JSON
+    evaluation = read_json(ep) if ep.exists() else None
+    return RunFolder(path=d, summary=summary, config=config, profile=profile, residuals=residuals,
+                     evaluation=evaluation)
+
+
+def _text(path: Path) -> str:
+    try:
+        return path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read: {exc}") from None

@@ -1,0 +1,174 @@
+"""Evaluation inputs: a dense profile.csv from ``chimeline run`` or a conventional survey CSV.
+
+Survey layouts (header names, any order, case-insensitive):
+- ``azimuth_deg, elevation`` [``label``] [``std_error``]
+- ``x, y, z`` [``label``]: azimuths (clockwise from +Y) about ``evaluate.survey_center`` or a fitted circle
+- ``point, elevation`` [``label``]: point numbers 1..N equally spaced clockwise from ``evaluate.start_azimuth_deg``
+Lengths are converted to metres with ``evaluate.input_units`` or the sibling profile.json's ``units``.
+"""
+from __future__ import annotations
+
+import csv
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Optional
+
+import numpy as np
+from scipy.optimize import least_squares
+
+from ..errors import ConfigError, InputError
+from ..units import to_metres
+from .runfiles import PROFILE_JSON, read_summary
+
+
+@dataclass(frozen=True)
+class SurveyData:
+    """Junction elevations around a tank: a dense scan profile or a conventional survey."""
+
+    azimuth_deg: np.ndarray  # (n,) in [0, 360), strictly increasing
+    elevation: np.ndarray  # (n,) m
+    std_error: Optional[np.ndarray]  # (n,) m 1 sigma, or None
+    label: tuple  # (n,) str
+    dense: bool  # a scan profile (many bins) rather than a conventional survey
+    units: str  # unit of the input file
+    source: str  # path or description
+    noise_sigma: Optional[float] = None  # m, per-point scanner noise from profile.json
+    n_dropped: int = 0  # bins without value (gaps) not used
+
+
+def _float(v, path, row, col, allow_empty=False):
+    v = (v or "").strip()
+    if v == "" and allow_empty:
+        return math.nan
+    try:
+        x = float(v)
+    except ValueError:
+        raise InputError(f"{path}: row {row}: '{col}' is not a number: {v!r}") from None
+    return x
+
+
+def read_survey(path, cfg) -> SurveyData:
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{path}: input file not found")
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read: {exc}") from None
+    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    if not lines:
+        raise InputError(f"{path}: the file is empty")
+    rows = list(csv.DictReader(lines))
+    if not rows:
+        raise InputError(f"{path}: no data rows below the header")
+    cols = {c.strip().lower(): c for c in rows[0].keys() if c is not None}
+    units, noise = _units(path, cfg)
+    f = to_metres(units)
+    dense = "status" in cols
+    label, se = [], []
+    if "azimuth_deg" in cols and "elevation" in cols:
+        az, z = [], []
+        dropped = 0
+        for i, r in enumerate(rows, start=2):
+            a = _float(r[cols["azimuth_deg"]], path, i, "azimuth_deg")
+            e = _float(r[cols["elevation"]], path, i, "elevation", allow_empty=dense)
+            st = r[cols["status"]].strip() if dense else "ok"
+            if dense and (st != "ok" or not math.isfinite(e)):
+                dropped += 1
+                continue
+            if not math.isfinite(e):
+                raise InputError(f"{path}: row {i}: elevation is NaN or infinite")
+            if not (0.0 <= a < 360.0):
+                raise InputError(f"{path}: row {i}: azimuth_deg {a} is outside [0, 360)")
+            az.append(a)
+            z.append(e * f)
+            label.append(r[cols["label"]].strip() if "label" in cols else str(i - 1))
+            if "std_error" in cols:
+                s = _float(r[cols["std_error"]], path, i, "std_error", allow_empty=True)
+                if math.isfinite(s) and s <= 0:
+                    raise InputError(f"{path}: row {i}: std_error must be > 0, got {s}")
+                se.append(s * f)
+    elif {"x", "y", "z"} <= set(cols):
+        xy, z = [], []
+        for i, r in enumerate(rows, start=2):
+            x, y, e = (_float(r[cols[c]], path, i, c) for c in ("x", "y", "z"))
+            if not all(map(math.isfinite, (x, y, e))):
+                raise InputError(f"{path}: row {i}: NaN or infinite coordinate")
+            xy.append((x * f, y * f))
+            z.append(e * f)
+            label.append(r[cols["label"]].strip() if "label" in cols else str(i - 1))
+        xy = np.array(xy)
+        c = np.asarray(cfg.survey_center, dtype=float) * f if cfg.survey_center is not None else _fit_circle(xy, path)
+        az = list(np.mod(np.degrees(np.arctan2(xy[:, 0] - c[0], xy[:, 1] - c[1])), 360.0))
+        dropped = 0
+    elif "point" in cols and "elevation" in cols:
+        pts, z = [], []
+        for i, r in enumerate(rows, start=2):
+            p = _float(r[cols["point"]], path, i, "point")
+            e = _float(r[cols["elevation"]], path, i, "elevation")
+            if not math.isfinite(e):
+                raise InputError(f"{path}: row {i}: elevation is NaN or infinite")
+            if p != int(p) or p < 1:
+                raise InputError(f"{path}: row {i}: point must be a whole number >= 1, got {p}")
+            pts.append(int(p))
+            z.append(e * f)
+            label.append(r[cols["label"]].strip() if "label" in cols else str(int(p)))
+        n = max(pts)
+        if len(set(pts)) != len(pts):
+            dup = sorted({p for p in pts if pts.count(p) > 1})[0]
+            raise InputError(f"{path}: point {dup} appears more than once")
+        az = [float(np.mod(cfg.start_azimuth_deg + (p - 1) * 360.0 / n, 360.0)) for p in pts]
+        dropped = 0
+    else:
+        raise InputError(f"{path}: needs columns azimuth_deg,elevation or x,y,z or point,elevation; found "
+                         f"{', '.join(cols)}")
+    az = np.asarray(az, dtype=float)
+    z = np.asarray(z, dtype=float)
+    order = np.argsort(az, kind="stable")
+    az, z = az[order], z[order]
+    label = tuple(np.asarray(label, dtype=object)[order])
+    se_arr = np.asarray(se, dtype=float)[order] if se else None
+    if se_arr is not None and not np.all(np.isfinite(se_arr)):
+        if dense:
+            raise InputError(f"{path}: ok bins must carry a std_error")
+        se_arr = None
+    d = np.diff(az)
+    if len(az) > 1 and (np.any(d < 1e-9) or (az[-1] - az[0]) > 360 - 1e-9):
+        k = int(np.argmin(d)) if np.any(d < 1e-9) else 0
+        raise InputError(f"{path}: duplicate azimuth {az[k]:.4f} deg (labels {label[k]}, {label[k + 1]})")
+    if len(az) < 4:
+        raise InputError(f"{path}: {len(az)} usable points; the evaluation needs at least 4")
+    return SurveyData(azimuth_deg=az, elevation=z, std_error=se_arr, label=label, dense=dense, units=units,
+                      source=str(path), noise_sigma=noise, n_dropped=dropped)
+
+
+def _units(path: Path, cfg):
+    side = path.with_name(PROFILE_JSON)
+    side_units, noise = None, None
+    if side.exists():
+        js = read_summary(side)
+        side_units = js["units"]
+        n = (js.get("noise") or {}).get("sigma")
+        noise = float(n) * to_metres(side_units) if isinstance(n, (int, float)) else None
+    if cfg.input_units != "auto":
+        if side_units and side_units != cfg.input_units:
+            raise ConfigError(f"evaluate.input_units is {cfg.input_units!r} but {side} says units {side_units!r}")
+        return cfg.input_units, noise
+    if side_units:
+        return side_units, noise
+    raise ConfigError(f"{path}: the length unit is unknown: set evaluate.input_units (m, mm, ft, us_ft, in) "
+                      f"or keep the run's profile.json beside the profile")
+
+
+def _fit_circle(xy, path):
+    """Least-squares circle (algebraic fit, then geometric refinement) through survey points."""
+    if len(xy) < 3:
+        raise InputError(f"{path}: at least 3 points are needed to fit the tank centre")
+    A = np.column_stack([2 * xy, np.ones(len(xy))])
+    b = (xy ** 2).sum(axis=1)
+    sol, *_ = np.linalg.lstsq(A, b, rcond=None)
+    c0 = sol[:2]
+    r0 = math.sqrt(max(sol[2] + c0 @ c0, 1e-12))
+    res = least_squares(lambda p: np.hypot(xy[:, 0] - p[0], xy[:, 1] - p[1]) - p[2], [c0[0], c0[1], r0])
+    return res.x[:2]

@@ -1,0 +1,119 @@
+"""A run folder's files as text and bytes: profile.csv, profile.json, config.resolved.yaml, residuals.csv,
+quicklook.png, plots/, report.html and, with an evaluation, its files."""
+from __future__ import annotations
+
+import numpy as np
+import yaml
+
+from ..version import __version__
+from ..config import config_hash
+from ..io.atomic import json_text
+from ..io.runfiles import CONFIG_YAML, PROFILE_CSV, PROFILE_JSON, RESIDUALS_CSV, ProfileTable, ResidualTable
+from ..notices import CAUTION, VERTICAL_REFERENCE
+from ..units import UNIT_LABELS
+from .evaluation_files import evaluation_run_files
+from .html import render_report, run_figures
+from .lengths import Lengths
+from .quicklook import quicklook
+
+
+def _num(v, digits=6):
+    if v is None or (isinstance(v, float) and not np.isfinite(v)):
+        return None
+    return round(float(v), digits)
+
+
+def profile_table(res) -> ProfileTable:
+    """The profile in output units and scan-datum elevations."""
+    L = Lengths(res)
+    p = res.profile
+    return ProfileTable(azimuth_deg=p.azimuth_deg, elevation=L.elevation(p.elevation), std_error=L.length(p.std_error),
+                        n_points=p.n_points, n_rejected=p.n_rejected, n_stations=p.n_stations, n_eff=p.n_eff,
+                        scale=L.length(p.scale), status=p.status)
+
+
+def _estimate(e, L):
+    if e is None:
+        return None
+    return {"sigma": _num(L.length(e.sigma), 7), "ci": [_num(L.length(e.ci[0]), 7), _num(L.length(e.ci[1]), 7)],
+            "dof": e.dof, "n_points": e.n_points}
+
+
+def profile_summary(res) -> dict:
+    L = Lengths(res)
+    s, fr, n, p, j = res.shell, res.frame, res.noise, res.profile, res.junction
+    status_counts = {k: int((p.status == k).sum()) for k in ("ok", "sparse", "suspect", "empty")}
+    tilt_deg = float(np.degrees(np.arccos(min(1.0, abs(s.axis[2])))))
+    return {
+        "units": L.unit,
+        "units_label": UNIT_LABELS.get(L.unit, L.unit),
+        "software": {"name": "chimeline", "version": __version__},
+        "tank": {"tag": res.config.tank.tag, "survey_date": res.config.tank.survey_date},
+        "input": {"path": str(res.scan_path), "sha256": res.input_sha256, "n_points_read": res.n_points_read,
+                  "units": fr.units, "units_source": fr.units_source},
+        "config": {"source": res.config_source, "sha256": config_hash(res.resolved), "seed": res.config.seed},
+        "frame": {"origin": fr.origin.tolist(), "origin_units": fr.units, "up_axis": fr.up_axis,
+                  "azimuth": f"degrees {'clockwise' if fr.azimuth_direction == 'cw' else 'counter-clockwise'} from "
+                             f"{fr.azimuth_reference_deg:g} deg (0 = +Y of the scan frame), in [0, 360)"},
+        "shell": {"center": [_num(v) for v in L.xy(s.center[:2], fr)], "base_elevation": _num(L.elevation(s.center[2])),
+                  "radius": _num(L.length(s.radius)), "radius_mean_all_courses": _num(L.length(s.radius_mean)),
+                  "axis": [_num(v, 9) for v in s.axis], "axis_tilt_deg": _num(tilt_deg, 5),
+                  "rms_residual": _num(L.length(s.rms_residual), 7), "n_inliers": s.n_inliers,
+                  "coverage": _num(s.coverage, 4), "ransac_trials": s.n_trials, "selection": s.selection,
+                  "other_cylinders": [{"center": [_num(v) for v in L.xy(o.center, fr)], "radius": _num(L.length(o.radius)),
+                                       "n_inliers": o.n_inliers, "coverage": _num(o.coverage, 3)} for o in s.others]},
+        "junction": {"projection_width": _num(L.length(j.projection_width)) if j.projection_width else None,
+                     "radial_window": [_num(L.length(v)) for v in j.radial_window],
+                     "method": "top of the bottom-plate projection next to the shell face: radial window, "
+                               "per-sector height mode prior, height gate"},
+        "profile": {"n_bins": len(p.azimuth_deg), "bin_width_deg": _num(p.bin_width_deg, 6),
+                    "coverage_ok": _num(p.coverage, 4), "status_counts": status_counts,
+                    "gaps_deg": [[_num(a, 4), _num(b, 4)] for a, b in p.gaps]},
+        "noise": {"sigma": _num(L.length(n.sigma), 7), "ci95" if abs(n.confidence - 0.95) < 1e-9 else "ci":
+                  [_num(L.length(n.ci[0]), 7), _num(L.length(n.ci[1]), 7)], "confidence": n.confidence,
+                  "method": n.method, "within_bin": _estimate(n.within_bin, L), "pairs": _estimate(n.pairs, L),
+                  "agreement_p": _num(n.agreement_p, 6), "estimators_agree": n.agree,
+                  "registration_sigma": _num(L.length(n.registration_sigma), 7),
+                  "registration_residual_sigma": _num(L.length(n.registration_residual_sigma), 7),
+                  "datum_sigma": _num(L.length(n.datum_sigma), 7),
+                  "stations_leveled": bool(res.profile.leveled),
+                  "stations": [{"station": st.station, "within_bin": _estimate(st.within_bin, L),
+                                "pairs": _estimate(st.pairs, L), "vertical_offset": _num(L.length(st.offset), 7),
+                                "vertical_offset_se": _num(L.length(st.offset_se), 7)} for st in n.stations]},
+        "counts": res.counts,
+        "timings_s": {k: round(v, 3) for k, v in res.timings.items()},
+        "warnings": list(res.warnings),
+        "vertical_reference": VERTICAL_REFERENCE,
+        "caution": CAUTION,
+    }
+
+
+def residual_table(res) -> ResidualTable:
+    """Kept junction points' residuals about their bin line, per station (for QA comparisons)."""
+    L = Lengths(res)
+    p, j = res.profile, res.junction
+    k = np.nonzero(p.kept)[0]
+    return ResidualTable(azimuth_deg=j.azimuth_deg[k], station=j.station[k], bin=p.bin_index[k],
+                         residual=L.length(p.residual[k]))
+
+
+def run_outputs(res) -> dict:
+    """Every file of a run folder: {relative path: text or PNG bytes}."""
+    files = {PROFILE_CSV: profile_table(res).to_csv(), PROFILE_JSON: json_text(profile_summary(res)),
+             CONFIG_YAML: "# resolved config of this run: rerun with  chimeline run SCAN --config "
+                          "config.resolved.yaml\n" + yaml.safe_dump(res.resolved, sort_keys=False)}
+    if res.config.output.plots:
+        files["quicklook.png"] = quicklook(res)
+    if res.evaluation is not None:
+        files.update(evaluation_run_files(res.evaluation, res.out_units))
+    files[RESIDUALS_CSV] = residual_table(res).to_csv()
+    if res.config.output.plots:
+        figs = run_figures(res, res.evaluation, res.out_units)
+        for name, png in figs.items():
+            files[f"plots/{name}.png"] = png
+        info = {"scan": str(res.scan_path), "sha256": res.input_sha256, "points read": res.n_points_read,
+                "scan units": f"{res.frame.units} ({res.frame.units_source})",
+                "local origin (scan units)": ", ".join(f"{v:.3f}" for v in res.frame.origin)}
+        files["report.html"] = render_report(res, res.evaluation, res.out_units, figs, res.resolved,
+                                             res.config_source, info, res.config.tank.tag or res.scan_path.stem)
+    return files

@@ -1,0 +1,1 @@
+"""Workflows: run, evaluate, compare, rerun, synth and demo. Sequencing, timings and output folders."""

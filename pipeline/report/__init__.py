@@ -1,1 +1,0 @@
-"""Renderers: CSV, JSON, plots and HTML. Nothing here computes results."""

@@ -1,0 +1,76 @@
+"""chimeline run as a workflow: files written, reproducibility, flagged coverage, NaN handling."""
+import json
+
+import laspy
+import numpy as np
+import pytest
+import yaml
+
+from tests.helpers import assert_fails, invoke
+
+
+def test_run_writes_profile_and_resolved_config(tmp_path, small_scan):
+    scan, truth = small_scan
+    out = tmp_path / "out"
+    invoke(["-q", "run", str(scan), "--out", str(out), "--set", "profile.bin_width_deg=2"])
+    names = {p.name for p in out.iterdir()}
+    assert {"profile.csv", "profile.json", "config.resolved.yaml", "quicklook.png"} <= names
+    rows = (out / "profile.csv").read_text().splitlines()
+    assert rows[0].split(",")[:6] == ["azimuth_deg", "elevation", "std_error", "n_points", "n_rejected", "n_stations"]
+    assert len(rows) == 1 + 180
+    js = json.loads((out / "profile.json").read_text())
+    for key in ("units", "shell", "noise", "input", "config", "software", "counts", "timings_s"):
+        assert key in js
+    assert js["shell"]["radius"] == pytest.approx(truth["tank"]["outer_radius"], abs=0.003)
+    assert len(js["input"]["sha256"]) == 64
+    assert "ci95" in js["noise"] and js["noise"]["ci95"][0] < js["noise"]["sigma"] < js["noise"]["ci95"][1]
+    resolved = yaml.safe_load((out / "config.resolved.yaml").read_text())
+    assert resolved["profile"]["bin_width_deg"] == 2
+    # rerunning with the resolved config reproduces the profile exactly
+    out2 = tmp_path / "out2"
+    invoke(["-q", "run", str(scan), "--out", str(out2), "--config", str(out / "config.resolved.yaml")])
+    assert (out2 / "profile.csv").read_text() == (out / "profile.csv").read_text()
+
+
+def test_nan_coordinates_dropped_or_refused(tmp_path, small_scan):
+    scan, _ = small_scan
+    las = laspy.read(scan)
+    xyz = np.column_stack([las.x, las.y, las.z, las.intensity, las.point_source_id]).astype(float)
+    few = xyz.copy()
+    few[::2000, 0] = np.nan
+    np.save(tmp_path / "few.npy", few)
+    invoke(["-q", "run", str(tmp_path / "few.npy"), "--out", str(tmp_path / "ok")])
+    js = json.loads((tmp_path / "ok" / "profile.json").read_text())
+    assert js["counts"]["nonfinite_dropped"] == len(few[::2000])
+    many = xyz.copy()
+    many[::20, 2] = np.inf
+    np.save(tmp_path / "many.npy", many)
+    assert_fails(["run", str(tmp_path / "many.npy"), "--out", str(tmp_path / "o")], "max_nonfinite_fraction",
+                  tmp_path / "o")
+
+
+def test_low_coverage_refused_or_flagged(tmp_path, simulate):
+    scan, _ = simulate("small_tank.yaml", 79, stations={"ring_count": 1, "ring_distance": 7.0,
+                                                          "common": {"h_step_deg": 0.5, "v_step_deg": 0.5,
+                                                                     "v_min_deg": -35,
+                                                                     "band": {"h_step_deg": 0.12, "v_step_deg": 0.05}}})
+    assert_fails(["run", str(scan), "--out", str(tmp_path / "o")], "profile.min_coverage", tmp_path / "o")
+    invoke(["-q", "run", str(scan), "--out", str(tmp_path / "f"), "--set", "profile.on_low_coverage=flag"])
+    js = json.loads((tmp_path / "f" / "profile.json").read_text())
+    assert any("min_coverage" in w for w in js["warnings"])
+
+
+def test_same_input_and_config_give_the_same_bytes(tmp_path, small_scan):
+    """Every machine output is identical on a second run (timings aside, which live in profile.json's timings_s)."""
+    scan, _ = small_scan
+    for name in ("a", "b"):
+        invoke(["-q", "run", scan, "--out", tmp_path / name, "--set", "tank.shell_height=6", "--set",
+                "tank.yield_strength=250 MPa"])
+    for f in ("profile.csv", "residuals.csv", "evaluation.json", "evaluation.csv", "fe_out_of_plane.csv",
+              "config.resolved.yaml"):
+        assert (tmp_path / "a" / f).read_bytes() == (tmp_path / "b" / f).read_bytes(), f
+    a, b = (json.loads((tmp_path / n / "profile.json").read_text()) for n in "ab")
+    for d in (a, b):
+        d.pop("timings_s")
+        d["input"].pop("path")
+    assert a == b
