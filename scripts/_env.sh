@@ -14,8 +14,13 @@ if command -v dpkg >/dev/null 2>&1; then
   if [ "${#missing[@]}" -gt 0 ]; then
     if [ "$(id -u)" = 0 ]; then
       echo "first run: installing system packages ${missing[*]} with apt-get" >&2
-      apt-get update -qq >/dev/null
-      DEBIAN_FRONTEND=noninteractive apt-get install -y -qq "${missing[@]}" >/dev/null
+      log="$(mktemp)"
+      if ! { apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq "${missing[@]}"; } >"$log" 2>&1; then
+        cat "$log" >&2
+        echo "apt-get could not install ${missing[*]}" >&2
+        exit 1
+      fi
+      rm -f "$log"
     else
       echo "missing system packages; install them with: sudo apt-get install ${missing[*]}" >&2
       exit 1
@@ -31,7 +36,12 @@ fi
 STAMP="$VENV/.chimeline-installed"
 if [ ! -f "$STAMP" ] || [ "$ROOT/pyproject.toml" -nt "$STAMP" ]; then
   [ -f "$STAMP" ] && echo "pyproject.toml changed: updating .venv" >&2
-  "$VENV/bin/python" -m pip install -q --disable-pip-version-check --upgrade pip >/dev/null
-  "$VENV/bin/python" -m pip install -q --disable-pip-version-check -e "$ROOT[test,e57]" >/dev/null
+  log="$VENV/install.log"
+  if ! { "$VENV/bin/python" -m pip install -q --disable-pip-version-check --upgrade pip &&
+         "$VENV/bin/python" -m pip install -q --disable-pip-version-check -e "$ROOT[test,e57]"; } >"$log" 2>&1; then
+    cat "$log" >&2
+    echo "installing chimeline into .venv failed (log above, also in $log)" >&2
+    exit 1
+  fi
   touch "$STAMP"
 fi

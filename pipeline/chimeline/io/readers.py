@@ -274,12 +274,15 @@ def load_open3d():
     """The open3d module, or a DependencyError naming what to install (it needs Debian's libusb-1.0-0)."""
     try:
         import open3d
-    except ImportError as exc:
-        raise DependencyError(f"open3d is not installed ({_short(exc)}); install it with pip install open3d-cpu "
+    except (ImportError, OSError) as exc:
+        msg = _short(exc)
+        lib = re.search(r"(lib[\w.+-]+\.so[\w.]*)", msg)
+        if isinstance(exc, OSError) or lib:  # a system library it links against is missing
+            pkg = "libusb-1.0-0" if lib is None or "usb" in lib.group(1) else lib.group(1)
+            raise DependencyError(f"open3d cannot be loaded: the system library {lib.group(1) if lib else ''} is "
+                                  f"missing ({msg}); on Debian/Ubuntu: sudo apt-get install {pkg}") from None
+        raise DependencyError(f"open3d is not installed ({msg}); install it with pip install open3d-cpu "
                               f"(Linux x86_64) or pip install open3d") from None
-    except OSError as exc:  # a system library it links against is missing
-        raise DependencyError(f"open3d cannot be loaded: {_short(exc)}; on Debian/Ubuntu install it with "
-                              f"sudo apt-get install libusb-1.0-0") from None
     return open3d
 
 
