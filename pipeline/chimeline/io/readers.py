@@ -43,6 +43,8 @@ class ScanSource:
     units_hint: Optional[str] = None  # from the file's CRS, if it says
     has_source_id: bool = False
     offset_hint: Optional[np.ndarray] = None
+    #: (3,) file units: the step between representable coordinates (LAS scale factors), None when negligible
+    coordinate_quantum: Optional[np.ndarray] = None
 
     def chunks(self, chunk_size: int) -> Iterator[Chunk]:
         raise NotImplementedError
@@ -108,6 +110,7 @@ class LasSource(ScanSource):
                                np.asarray(h.scales, dtype=float))
                 self.scale = np.asarray(h.scales, dtype=float)
                 self.offset = np.asarray(h.offsets, dtype=float)
+                self.coordinate_quantum = self.scale.copy()
         except InputError:
             raise
         except Exception as exc:
