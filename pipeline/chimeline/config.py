@@ -363,21 +363,26 @@ class NoiseConfig:
 class EvaluateConfig:
     input_units: str = choice_field("auto", ("auto", "m", "mm", "ft", "us_ft", "in"),
                                     doc="length unit of an evaluate input; auto: from the sibling profile.json")
-    tilt_rule: str = choice_field("p_value", ("p_value", "r_squared"),
-                                  doc="what decides that a tilt plane exists: the F test or the standard's R^2")
     alpha: float = rng_field(0.05, 1e-6, 0.5, doc="significance level of the tests")
-    r2_min: float = rng_field(0.9, 0.0, 1.0, doc="the standard's R^2 acceptance of the cosine fit")
-    order_selection: str = choice_field("auto", ("auto", "nested_f", "bic", "fixed"),
-                                        doc="auto: BIC for dense profiles, nested F tests for sparse surveys")
+    screening_alpha: float = rng_field(0.01, 1e-6, 0.5, doc="false-flag rate of each screening flag on noise alone")
+    r2_min: float = rng_field(0.9, 0.0, 1.0, doc="the standard's R^2 acceptance of the cosine fit (from memory)")
+    order_selection: str = choice_field("auto", ("auto", "blocked_cv", "nested_f", "bic", "fixed"),
+                                        doc="auto: blocked cross-validation for dense profiles, nested F for surveys")
     order: Optional[int] = None  # the Fourier order with order_selection: fixed
     max_order: int = rng_field(30, 1, 500, doc="cap on the Fourier order")
     min_wavelength: float = rng_field(3.0, 0.1, 1000.0, doc="m of arc: shortest Fourier wavelength fitted")
+    cv_block_deg: float = rng_field(10.0, 1.0, 90.0, doc="contiguous arc left out together in cross-validation")
+    cv_folds: int = rng_field(6, 2, 20, doc="folds of the blocked cross-validation")
     deflection_spacing: Union[float, str] = "auto"  # m of arc between a point and its neighbours (dense), or auto
-    survey_std_error: float = rng_field(0.0015, 0.0, 0.1, doc="m, 1 sigma assumed for survey readings without one")
-    curvature_step_deg: float = rng_field(0.5, 0.01, 10.0, doc="azimuth step of the curvature check")
-    arc_table: Optional[str] = None  # YAML permissible settlement table; None: the packaged illustrative demo table
+    curvature_smoothing: Union[float, str] = "auto"  # m: spacing the curvature screening is smoothed at; auto: L
+    dip_min_length: float = rng_field(1.0, 0.05, 50.0, doc="m: shorter features are plate texture, not dips")
+    min_evidence_coverage: float = rng_field(0.9, 0.0, 1.0, doc="share of the circumference a check needs")
+    survey_std_error: float = rng_field(0.0015, 0.0, 0.1, doc="m, 1 sigma of a survey reading (floor when estimated)")
+    curvature_step_deg: float = rng_field(0.5, 0.01, 10.0, doc="azimuth step of the evaluation grid")
+    arc_table: Optional[str] = None  # permissible settled-arc table (YAML path), illustrative-demo, or none
     survey_center: Optional[tuple[float, float]] = None  # for x y z surveys; None: fitted circle
     start_azimuth_deg: float = rng_field(0.0, 0.0, 360.0, doc="azimuth of point 1 in numbered surveys")
+    survey_points: Optional[int] = None  # numbered surveys: points around the tank (default: the highest number)
     decimate: Optional[int] = None  # points of a simulated conventional survey taken from a dense profile
     decimate_start_deg: Union[float, str] = 0.0  # or "all": every start within one spacing
 
@@ -386,17 +391,24 @@ class EvaluateConfig:
             raise ConfigError(f"{source}: '{_join(prefix, 'order')}' is required with order_selection: fixed")
         if self.order is not None and not (isinstance(self.order, int) and 1 <= self.order <= 500):
             raise ConfigError(f"{source}: '{_join(prefix, 'order')}' must be an int in [1, 500], got {self.order!r}")
-        if isinstance(self.deflection_spacing, str) and self.deflection_spacing != "auto":
-            raise ConfigError(f"{source}: '{_join(prefix, 'deflection_spacing')}' must be a number (m) or 'auto', "
-                              f"got {self.deflection_spacing!r}")
-        if not isinstance(self.deflection_spacing, str) and self.deflection_spacing <= 0:
-            raise ConfigError(f"{source}: '{_join(prefix, 'deflection_spacing')}' must be > 0, got "
-                              f"{self.deflection_spacing!r}")
+        for key in ("deflection_spacing", "curvature_smoothing"):
+            v = getattr(self, key)
+            if isinstance(v, str) and v != "auto":
+                raise ConfigError(f"{source}: '{_join(prefix, key)}' must be a number (m) or 'auto', got {v!r}")
+            if not isinstance(v, str) and not (0 < v < 1e4):
+                raise ConfigError(f"{source}: '{_join(prefix, key)}' must be a number of metres in (0, 10000) or "
+                                  f"'auto', got {v!r}")
         if self.decimate is not None and not (isinstance(self.decimate, int) and 4 <= self.decimate <= 360):
             raise ConfigError(f"{source}: '{_join(prefix, 'decimate')}' must be an int in [4, 360], got {self.decimate!r}")
+        if self.survey_points is not None and not (isinstance(self.survey_points, int) and 4 <= self.survey_points <= 1000):
+            raise ConfigError(f"{source}: '{_join(prefix, 'survey_points')}' must be an int in [4, 1000], got "
+                              f"{self.survey_points!r}")
         d = self.decimate_start_deg
         if isinstance(d, str) and d != "all":
             raise ConfigError(f"{source}: '{_join(prefix, 'decimate_start_deg')}' must be degrees or 'all', got {d!r}")
+        if not isinstance(d, str) and not (0 <= d < 360):
+            raise ConfigError(f"{source}: '{_join(prefix, 'decimate_start_deg')}' must be degrees in [0, 360) or "
+                              f"'all', got {d!r}")
 
 
 @dataclass(frozen=True)

@@ -1,5 +1,4 @@
 """CLI: help, exit codes, one-line errors, and nothing written on failure (click's CliRunner)."""
-import json
 
 import laspy
 import numpy as np

@@ -11,7 +11,7 @@ from PIL import Image
 from tests.helpers import chromium, invoke
 
 TANK = ["--set", "tank.tag=GM-TK-02", "--set", "tank.survey_date=2026-06-15", "--set", "tank.shell_height=6",
-        "--set", "tank.yield_strength=250 MPa"]
+        "--set", "tank.yield_strength=250 MPa", "--set", "evaluate.arc_table=illustrative-demo"]
 
 
 @pytest.fixture(scope="module")
@@ -38,7 +38,12 @@ def test_report_files_and_content(run_dir):
     v = js["verdict"]
     assert f"Overall: <span class='v v-{v}'>{v}</span>" in html or f'Overall: <span class="v v-{v}">{v}</span>' in html
     for c in js["criteria"]:  # each criterion's row carries its own verdict
-        assert re.search(re.escape(c["name"]) + r"</td><td><span class=\"v v-" + c["verdict"], html), c["name"]
+        cls = c["verdict"].replace(" ", "-")
+        assert re.search(re.escape(c["name"]) + r"</td><td><span class=\"v v-" + cls, html), c["name"]
+    # the first box says which check governs and which checks are the standard's and which are screening
+    assert f"Governing check: <b>{js['governing']}</b>" in html
+    assert html.index("The standard&#x27;s checks") < html.index("Screening flags")
+    assert "R^2 rule:" in html
 
 
 def test_report_renders_in_headless_chromium(run_dir, tmp_path):

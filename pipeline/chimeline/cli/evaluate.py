@@ -6,6 +6,8 @@ from pathlib import Path
 import click
 
 from ..core.lazy import lazy_import
+from ..notices import CAUTION
+from ..report.console import verdict_lines
 from .common import config_option, out_option, reported, set_option, set_pairs
 
 evaluate_wf = lazy_import("chimeline.workflows.evaluate")
@@ -32,8 +34,9 @@ def evaluate(input_csv, config_path, sets, decimate, out_dir):
         pairs.append(("evaluate.decimate", decimate))
     with reported():
         ev = evaluate_wf.evaluate_file(input_csv, out_dir, config_path, pairs)
-    click.echo(f"verdict: {ev.verdict}  (" + "; ".join(f"{c.name}: {c.verdict}" for c in ev.criteria) + ")")
-    click.echo(f"tilt {ev.tilt.amplitude * 1e3:.1f} mm, R^2 = {ev.tilt.r_squared:.3f}, p = {ev.tilt.f_test.p_value:.3g}; "
-               f"wrote {out_dir}/evaluation.json")
+    for line in verdict_lines(ev, ev.survey.units):
+        click.echo(line)
+    click.echo(f"wrote {out_dir}/evaluation.json, evaluation.csv, fe_out_of_plane.csv, report.html and plots/")
     for w in ev.warnings:
         click.echo(f"warning: {w}", err=True)
+    click.echo(f"Caution: {CAUTION}")

@@ -6,6 +6,8 @@ from pathlib import Path
 import click
 
 from ..core.lazy import lazy_import
+from ..notices import CAUTION
+from ..report.console import verdict_lines
 from .common import Progress, config_option, out_option, reported, set_option, set_pairs
 
 run_wf = lazy_import("chimeline.workflows.run")
@@ -32,5 +34,9 @@ def run(ctx, scan, config_path, sets, out_dir):
     n = res.noise
     click.echo(f"wrote {out_dir}/profile.csv ({len(res.profile.azimuth_deg)} bins, {100 * res.profile.coverage:.1f} % ok); "
                f"noise sigma {n.sigma * 1e3:.2f} mm [{n.ci[0] * 1e3:.2f}, {n.ci[1] * 1e3:.2f}]")
+    if res.evaluation is not None:
+        for line in verdict_lines(res.evaluation, res.out_units):
+            click.echo(line)
     for w in res.warnings:
         click.echo(f"warning: {w}", err=True)
+    click.echo(f"Caution: {CAUTION}")

@@ -3,7 +3,8 @@
 Survey layouts (header names, any order, case-insensitive):
 - ``azimuth_deg, elevation`` [``label``] [``std_error``]
 - ``x, y, z`` [``label``]: azimuths (clockwise from +Y) about ``evaluate.survey_center`` or a fitted circle
-- ``point, elevation`` [``label``]: point numbers 1..N equally spaced clockwise from ``evaluate.start_azimuth_deg``
+- ``point, elevation`` [``label``]: point numbers 1..N equally spaced clockwise from ``evaluate.start_azimuth_deg``,
+  N = ``evaluate.survey_points`` (default: the highest number), so a missing point stays missing
 Lengths are converted to metres with ``evaluate.input_units`` or the sibling profile.json's ``units``.
 """
 from __future__ import annotations
@@ -114,7 +115,9 @@ def read_survey(path, cfg) -> SurveyData:
             pts.append(int(p))
             z.append(e * f)
             label.append(r[cols["label"]].strip() if "label" in cols else str(int(p)))
-        n = max(pts)
+        n = cfg.survey_points or max(pts)
+        if max(pts) > n:
+            raise InputError(f"{path}: point {max(pts)} is beyond evaluate.survey_points = {n}")
         if len(set(pts)) != len(pts):
             dup = sorted({p for p in pts if pts.count(p) > 1})[0]
             raise InputError(f"{path}: point {dup} appears more than once")

@@ -133,23 +133,29 @@ def deflection_plot(ev, units):
 def curvature_plot(ev, units):
     fig, ax = _fig()
     c = ev.curvature
-    f = to_metres(units)
-    scale = f  # 1/m -> 1/unit
-    ax.fill_between(c.azimuth_deg, (c.kappa - Z95 * c.kappa_sd) * scale, (c.kappa + Z95 * c.kappa_sd) * scale,
-                    color=BAND, lw=0, label="95 % band")
-    ax.plot(c.azimuth_deg, c.kappa * scale, color=INK, lw=1, label="curvature of the Fourier model (modes >= 2)")
-    ax.axhline(c.limit * scale, color=LIMIT, ls="--", lw=1, label="limit 11 Y / (E H)")
+    scale = to_metres(units)  # 1/m -> 1/unit
+    if c.assessed:
+        qs, qp = c.q_simultaneous, c.q_pointwise
+        ax.fill_between(c.azimuth_deg, (c.kappa - qs * c.kappa_sd) * scale, (c.kappa + qs * c.kappa_sd) * scale,
+                        color=BAND, alpha=0.45, lw=0, label="simultaneous 95 % band")
+        ax.fill_between(c.azimuth_deg, (c.kappa - qp * c.kappa_sd) * scale, (c.kappa + qp * c.kappa_sd) * scale,
+                        color=BAND, lw=0, label="pointwise 95 % band")
+        ax.plot(c.azimuth_deg, c.kappa * scale, color=INK, lw=1,
+                label=f"curvature smoothed at {c.smoothing / to_metres(units):.2f} {_ul(units)} (modes >= 2)")
+        ex = c.exceeds
+        if ex.any():
+            ax.plot(c.azimuth_deg[ex], c.kappa[ex] * scale, ".", color=LIMIT, ms=4, label="band beyond the limit")
+    else:
+        ax.text(180, 0, "not assessed: no mode above 1 in the model", ha="center", va="bottom", fontsize=8, color=INK)
+    ax.axhline(c.limit * scale, color=LIMIT, ls="--", lw=1, label="limit 11 Y / (E H) (screening)")
     ax.axhline(-c.limit * scale, color=LIMIT, ls="--", lw=1)
-    ex = c.exceeds
-    if ex.any():
-        ax.plot(c.azimuth_deg[ex], c.kappa[ex] * scale, ".", color=LIMIT, ms=4, label="band beyond the limit")
     if ev.curvature_sparse is not None:
         cs = ev.curvature_sparse
         ax.plot(cs.azimuth_deg, cs.kappa * scale, "o", color=MEASURED, ms=4, mfc="none",
                 label="second difference at the survey points")
     _az_axis(ax)
     ax.set_ylabel(f"curvature (1/{_ul(units)})")
-    ax.legend(fontsize=7, frameon=False, ncol=2)
+    ax.legend(fontsize=7, frameon=False, ncol=2, loc="upper left", bbox_to_anchor=(0, -0.22))
     return _png(fig)
 
 
@@ -163,7 +169,7 @@ def arcs_plot(ev, units):
         ax.plot(t.curve_arc_length / f, t.curve_depth * k, color=LIMIT, ls="--", lw=1, label=lab)
     deepest = sorted(ev.arcs, key=lambda a: -a.depth)[:6]
     for a in ev.arcs:
-        col = LIMIT if a.verdict == "exceeds" else (MUTED if a.verdict == "outside table" else MEASURED)
+        col = LIMIT if a.verdict == "exceeds" else (MEASURED if a.verdict in ("acceptable", "indeterminate") else MUTED)
         ax.errorbar(a.arc_length / f, a.depth * k, yerr=Z95 * a.depth_sd * k, fmt="o", color=col, ms=4,
                     elinewidth=0.6)
         if a in deepest:
@@ -172,7 +178,11 @@ def arcs_plot(ev, units):
     ax.set_xlabel(f"settled arc length ({_ul(units)})")
     ax.set_ylabel(f"depth below the chord ({u})")
     ax.grid(alpha=0.25, lw=0.5)
-    ax.legend(fontsize=7, frameon=False)
+    if t.curve_arc_length is not None:
+        ax.legend(fontsize=7, frameon=False)
+    else:
+        ax.text(0.02, 0.95, "no permissible table supplied: arcs not assessed", transform=ax.transAxes, fontsize=8,
+                va="top", color=INK)
     ax.set_title("settled arcs (labels: azimuth of the deepest point of the six deepest, deg)", fontsize=8)
     return _png(fig)
 

@@ -12,6 +12,7 @@ from ..notices import CAUTION
 from ..units import INCH, UNIT_LABELS, to_metres
 from ..version import __version__
 from . import figures as F
+from .console import r2_rule_text
 
 CSS = """
 body{font-family:system-ui,-apple-system,'Segoe UI',Helvetica,Arial,sans-serif;color:#1d2b36;max-width:1080px;
@@ -23,6 +24,7 @@ table{border-collapse:collapse;margin:8px 0;width:100%} td,th{border-bottom:1px 
 text-align:left;vertical-align:top} th{background:#eef1f4;font-weight:600}
 .v{font-weight:700;text-transform:uppercase;letter-spacing:.03em}
 .v-acceptable{color:#1e6b3a} .v-exceeds{color:#a0261c} .v-indeterminate{color:#8a5a00}
+.result{border:1px solid #c9d1d8;padding:4px 14px;margin:10px 0} h3{font-size:15px;margin:12px 0 4px}
 .overall{font-size:18px;margin:8px 0}
 figure{margin:14px 0;page-break-inside:avoid} figure img{max-width:100%;border:1px solid #e3e7eb}
 figcaption{font-size:12px;color:#55636f}
@@ -48,7 +50,7 @@ def _p(p) -> str:
 
 
 def _verdict(v) -> str:
-    return f'<span class="v v-{v}">{_e(v)}</span>'
+    return f'<span class="v v-{v.replace(" ", "-")}">{_e(v)}</span>'
 
 
 def _fmt_len(v_m, units, small=False):
@@ -75,16 +77,29 @@ def render_report(res=None, ev=None, units="m", figures=None, resolved=None, con
     # ---- summary
     out.append("<h2>Summary</h2>")
     if ev is not None:
+        gov = next((c for c in ev.criteria if c.name == ev.governing), None)
+        out.append("<div class='result'>")
         out.append(f"<p class='overall'>Overall: {_verdict(ev.verdict)}</p>")
-        out.append("<table><tr><th>criterion</th><th>verdict</th><th>governing number</th><th>where (deg)</th>"
-                   "<th>notes</th></tr>")
-        for c in ev.criteria:
-            where = ", ".join(f"{a:.1f}-{b:.1f}" for a, b in c.azimuth_ranges[:8]) or "-"
-            if len(c.azimuth_ranges) > 8:
-                where += f" (+{len(c.azimuth_ranges) - 8} more)"
-            out.append(f"<tr><td>{_e(c.name)}</td><td>{_verdict(c.verdict)}</td><td>{_e(c.governing)}</td>"
-                       f"<td>{_e(where)}</td><td>{'<br>'.join(_e(r) for r in c.reasons)}</td></tr>")
-        out.append("</table>")
+        out.append(f"<p>Governing check: <b>{_e(ev.governing)}</b>"
+                   + (f" ({'one of the standard' + chr(39) + 's checks, clause ' + _e(gov.clause)})" if gov is not None and gov.clause else "")
+                   + ". The overall verdict comes from the standard's checks only; screening flags inform and never "
+                   "set it. 'Exceeds' needs the exceedance to stand beyond the measurement uncertainty.</p>")
+        out.append(f"<p>R^2 rule: {_e(r2_rule_text(ev))}.</p>")
+        for title, group in (("The standard's checks", [c for c in ev.criteria if c.clause is not None]),
+                             ("Screening flags (inform, never decide)", [c for c in ev.criteria if c.clause is None])):
+            out.append(f"<h3>{_e(title)}</h3><table><tr><th>check</th><th>verdict</th><th>ratio</th>"
+                       "<th>95 % upper bound</th><th>measurement uncertainty</th><th>where (deg)</th><th>notes</th></tr>")
+            for c in group:
+                where = ", ".join(f"{a:.1f}-{b:.1f}" for a, b in c.azimuth_ranges[:8]) or "-"
+                if len(c.azimuth_ranges) > 8:
+                    where += f" (+{len(c.azimuth_ranges) - 8} more)"
+                ratio = f"{c.ratio:.3g}" if c.ratio is not None else "-"
+                up = f"{c.ratio_upper95:.3g}" if c.ratio_upper95 is not None else "-"
+                out.append(f"<tr><td>{_e(c.name)}</td><td>{_verdict(c.verdict)}</td><td>{ratio}</td><td>{up}</td>"
+                           f"<td>{_e(c.uncertainty or c.governing)}</td><td>{_e(where)}</td>"
+                           f"<td>{'<br>'.join(_e(r) for r in c.reasons)}</td></tr>")
+            out.append("</table>")
+        out.append("</div>")
         t = ev.tilt
         out.append("<table><tr><th>tilt plane</th><th></th></tr>"
                    f"<tr><td>amplitude (half peak-to-peak at the shell)</td><td>{_fmt_len(t.amplitude, units, True)}</td></tr>"
@@ -92,7 +107,7 @@ def render_report(res=None, ev=None, units="m", figures=None, resolved=None, con
                    f"<tr><td>R^2 of the cosine fit (the standard's rule: >= {ev.settings.r2_min})</td>"
                    f"<td>{t.r_squared:.4f} ({'met' if t.r2_rule_met else 'not met'})</td></tr>"
                    f"<tr><td>F test of the cosine fit</td><td>F = {t.f_test.statistic:.4g}, p = {_p(t.f_test.p_value)}</td></tr>"
-                   f"<tr><td>tilt terms within the Fourier model (K = {ev.fourier.order})</td><td>partial F p = "
+                   f"<tr><td>{_e(ev.fourier.tilt_partial_f.name)} (K = {ev.fourier.order})</td><td>p = "
                    f"{_p(ev.fourier.tilt_partial_f.p_value)}"
                    + (f"; chi-square vs measured noise p = {_p(ev.fourier.tilt_chi2.p_value)}" if ev.fourier.tilt_chi2 else "")
                    + f"</td></tr><tr><td>tilt plane exists (decided by {t.decided_by})</td><td>"

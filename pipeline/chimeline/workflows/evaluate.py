@@ -29,13 +29,14 @@ def survey_from_run(res) -> SurveyData:
 
 def _evaluate(s: SurveyData, tank, cfg) -> Evaluation:
     table = load_arc_table(cfg.evaluate.arc_table)
-    ev = evaluate_survey(s, tank, cfg.evaluate, table)
+    ev = evaluate_survey(s, tank, cfg.evaluate, table, seed=cfg.seed)
     if cfg.evaluate.decimate:
         if not s.dense:
             ev = dataclasses.replace(ev, warnings=ev.warnings + ("evaluate.decimate applies to dense profiles only; "
                                                                  "ignored",))
         else:
-            ev = dataclasses.replace(ev, decimation=decimation_study(s, tank, cfg.evaluate, table))
+            ev = dataclasses.replace(ev, decimation=decimation_study(s, tank, cfg.evaluate, table,
+                                                                                  seed=cfg.seed))
     return ev
 
 
