@@ -415,6 +415,7 @@ class EvaluateConfig:
 class OutputConfig:
     length_unit: str = choice_field("input", ("input", "m", "mm", "ft", "us_ft", "in"))
     plots: bool = True
+    pdf: bool = False  # also print report.html to report.pdf with headless Chromium
 
 
 @dataclass(frozen=True)

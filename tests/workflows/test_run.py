@@ -15,8 +15,8 @@ def test_run_writes_profile_and_resolved_config(tmp_path, small_scan):
     invoke(["-q", "run", str(scan), "--out", str(out), "--set", "profile.bin_width_deg=2"])
     names = {p.name for p in out.iterdir()}
     assert {"profile.csv", "profile.json", "config.resolved.yaml", "quicklook.png"} <= names
-    rows = (out / "profile.csv").read_text().splitlines()
-    assert rows[0].split(",")[:6] == ["azimuth_deg", "elevation", "std_error", "n_points", "n_rejected", "n_stations"]
+    rows = [r for r in (out / "profile.csv").read_text().splitlines() if not r.startswith("#")]
+    assert rows[0].split(",")[:6] == ["azimuth_deg", "elevation_m", "std_error_m", "n_points", "n_rejected", "n_stations"]
     assert len(rows) == 1 + 180
     js = json.loads((out / "profile.json").read_text())
     for key in ("units", "shell", "noise", "input", "config", "software", "counts", "timings_s"):

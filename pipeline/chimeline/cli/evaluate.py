@@ -19,17 +19,25 @@ evaluate_wf = lazy_import("chimeline.workflows.evaluate")
 @set_option("Override a config key, e.g. tank.yield_strength='36 ksi' (repeatable).")
 @click.option("--decimate", type=int, default=None, help="Also evaluate an N-point survey sampled from a dense profile.")
 @out_option()
-def evaluate(input_csv, config_path, sets, decimate, out_dir):
-    """Evaluate shell settlement from a profile.csv or a conventional survey CSV.
+@click.option("--pdf", is_flag=True, help="Also print report.html to report.pdf (needs Chromium).")
+def evaluate(input_csv, config_path, sets, decimate, out_dir, pdf):
+    """Settlement evaluation of a profile.csv or a conventional survey CSV.
 
     \b
     Inputs: profile.csv from 'chimeline run', or a survey with columns
       azimuth_deg,elevation[,label,std_error]  or  x,y,z[,label]  or  point,elevation
+    (a unit suffix such as elevation_ft gives the length unit).
     Tank data come from the config: tank.diameter, tank.shell_height, tank.yield_strength
-    (with units, e.g. '36 ksi'), tank.youngs_modulus, tank.roof. Writes evaluation.json,
-    evaluation.csv and fe_out_of_plane.csv into OUT.
+    (with units, e.g. '36 ksi'), tank.youngs_modulus, tank.roof; the permissible
+    settled-arc table from evaluate.arc_table. Writes into OUT:
+      evaluation.json, evaluation.csv   the checks, verdicts and per-point values
+      fe_out_of_plane.csv               out-of-plane settlement for an FE model
+      report.html, plots/*.png          the report; report.pdf with --pdf
+      config.resolved.yaml              the exact config
     """
     pairs = set_pairs(sets)
+    if pdf:
+        pairs.append(("output.pdf", True))
     if decimate is not None:
         pairs.append(("evaluate.decimate", decimate))
     with reported():

@@ -18,16 +18,25 @@ run_wf = lazy_import("chimeline.workflows.run")
 @config_option()
 @set_option()
 @out_option()
+@click.option("--pdf", is_flag=True, help="Also print report.html to report.pdf (needs Chromium).")
 @click.pass_context
-def run(ctx, scan, config_path, sets, out_dir):
-    """Turn a registered scan into a junction profile with uncertainty and noise.
+def run(ctx, scan, config_path, sets, out_dir, pdf):
+    """Scan -> junction profile with uncertainty and noise (+ evaluation).
 
-    Reads LAS/LAZ, PLY/PCD, E57, ASCII (.xyz .txt .pts .csv) or .npy. Writes
-    profile.csv, profile.json, config.resolved.yaml and quicklook.png into OUT;
-    with tank data in the config (shell_height, yield_strength) it also
-    evaluates the settlement. A failed run writes nothing.
+    \b
+    Reads LAS/LAZ, PLY/PCD, E57, ASCII (.xyz .txt .pts .csv) or .npy. Writes into OUT:
+      profile.csv, profile.json     the profile per azimuth bin, and the run's summary
+      residuals.csv                 kept junction points' residuals (for compare)
+      config.resolved.yaml          the exact config (rerun with --config)
+      report.html, plots/*.png      the report and its figures; quicklook.png
+      report.pdf                    with --pdf (headless Chromium)
+    With tank data in the config (tank.shell_height, tank.yield_strength) it also
+    evaluates the settlement: evaluation.json, evaluation.csv, fe_out_of_plane.csv.
+    A failed run writes nothing.
     """
     pairs = set_pairs(sets)
+    if pdf:
+        pairs.append(("output.pdf", True))
     progress = Progress(ctx.obj["quiet"])
     with reported(progress):
         res = run_wf.run_scan(scan, out_dir, config_path, pairs, progress)

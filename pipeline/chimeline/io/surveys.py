@@ -20,7 +20,7 @@ from scipy.optimize import least_squares
 
 from ..errors import ConfigError, InputError
 from ..units import to_metres
-from .runfiles import PROFILE_JSON, read_summary
+from .runfiles import PROFILE_JSON, read_summary, split_unit
 
 
 @dataclass(frozen=True)
@@ -63,8 +63,19 @@ def read_survey(path, cfg) -> SurveyData:
     rows = list(csv.DictReader(lines))
     if not rows:
         raise InputError(f"{path}: no data rows below the header")
-    cols = {c.strip().lower(): c for c in rows[0].keys() if c is not None}
-    units, noise = _units(path, cfg)
+    cols, header_units = {}, set()
+    for c in rows[0].keys():
+        if c is None:
+            continue
+        base, u = split_unit(c.strip().lower())
+        if u is not None and base in ("elevation", "std_error", "x", "y", "z"):
+            header_units.add(u)
+            cols[base] = c
+        else:
+            cols[c.strip().lower()] = c
+    if len(header_units) > 1:
+        raise InputError(f"{path}: the length columns carry different units ({', '.join(sorted(header_units))})")
+    units, noise = _units(path, cfg, header_units.pop() if header_units else None)
     f = to_metres(units)
     dense = "status" in cols
     label, se = [], []
@@ -146,7 +157,9 @@ def read_survey(path, cfg) -> SurveyData:
                       source=str(path), noise_sigma=noise, n_dropped=dropped)
 
 
-def _units(path: Path, cfg):
+def _units(path: Path, cfg, header_unit=None):
+    """The input's length unit: from a unit suffix in the header (elevation_ft), evaluate.input_units or the
+    sibling profile.json; any two that disagree are an error."""
     side = path.with_name(PROFILE_JSON)
     side_units, noise = None, None
     if side.exists():
@@ -154,14 +167,21 @@ def _units(path: Path, cfg):
         side_units = js["units"]
         n = (js.get("noise") or {}).get("sigma")
         noise = float(n) * to_metres(side_units) if isinstance(n, (int, float)) else None
+    if header_unit is not None:
+        if cfg.input_units != "auto" and cfg.input_units != header_unit:
+            raise ConfigError(f"evaluate.input_units is {cfg.input_units!r} but the columns of {path} are in "
+                              f"{header_unit!r}")
+        if side_units and side_units != header_unit:
+            raise InputError(f"{path}: its columns are in {header_unit!r} but {side} says units {side_units!r}")
+        return header_unit, noise
     if cfg.input_units != "auto":
         if side_units and side_units != cfg.input_units:
             raise ConfigError(f"evaluate.input_units is {cfg.input_units!r} but {side} says units {side_units!r}")
         return cfg.input_units, noise
     if side_units:
         return side_units, noise
-    raise ConfigError(f"{path}: the length unit is unknown: set evaluate.input_units (m, mm, ft, us_ft, in) "
-                      f"or keep the run's profile.json beside the profile")
+    raise ConfigError(f"{path}: the length unit is unknown: set evaluate.input_units (m, mm, ft, us_ft, in), "
+                      f"name the columns with their unit (elevation_ft), or keep the run's profile.json beside it")
 
 
 def _fit_circle(xy, path):

@@ -29,7 +29,7 @@ def profile_table(res) -> ProfileTable:
     p = res.profile
     return ProfileTable(azimuth_deg=p.azimuth_deg, elevation=L.elevation(p.elevation), std_error=L.length(p.std_error),
                         n_points=p.n_points, n_rejected=p.n_rejected, n_stations=p.n_stations, n_eff=p.n_eff,
-                        scale=L.length(p.scale), status=p.status)
+                        scale=L.length(p.scale), status=p.status, units=L.unit)
 
 
 def _estimate(e, L):
@@ -94,7 +94,7 @@ def residual_table(res) -> ResidualTable:
     p, j = res.profile, res.junction
     k = np.nonzero(p.kept)[0]
     return ResidualTable(azimuth_deg=j.azimuth_deg[k], station=j.station[k], bin=p.bin_index[k],
-                         residual=L.length(p.residual[k]))
+                         residual=L.length(p.residual[k]), units=L.unit)
 
 
 def run_outputs(res) -> dict:
@@ -107,13 +107,12 @@ def run_outputs(res) -> dict:
     if res.evaluation is not None:
         files.update(evaluation_run_files(res.evaluation, res.out_units))
     files[RESIDUALS_CSV] = residual_table(res).to_csv()
-    if res.config.output.plots:
-        figs = run_figures(res, res.evaluation, res.out_units)
-        for name, png in figs.items():
-            files[f"plots/{name}.png"] = png
-        info = {"scan": str(res.scan_path), "sha256": res.input_sha256, "points read": res.n_points_read,
-                "scan units": f"{res.frame.units} ({res.frame.units_source})",
-                "local origin (scan units)": ", ".join(f"{v:.3f}" for v in res.frame.origin)}
-        files["report.html"] = render_report(res, res.evaluation, res.out_units, figs, res.resolved,
-                                             res.config_source, info, res.config.tank.tag or res.scan_path.stem)
+    figs = run_figures(res, res.evaluation, res.out_units) if res.config.output.plots else {}
+    for name, png in figs.items():
+        files[f"plots/{name}.png"] = png
+    info = {"scan": str(res.scan_path), "sha256": res.input_sha256, "points read": res.n_points_read,
+            "scan units": f"{res.frame.units} ({res.frame.units_source})",
+            "local origin (scan units)": ", ".join(f"{v:.3f}" for v in res.frame.origin)}
+    files["report.html"] = render_report(res, res.evaluation, res.out_units, figs, res.resolved,
+                                         res.config_source, info, res.config.tank.tag or res.scan_path.stem)
     return files

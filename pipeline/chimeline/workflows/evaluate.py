@@ -11,6 +11,7 @@ from ..evaluate import decimation_study, evaluate_survey, has_tank_data, tank_da
 from ..evaluate.results import Evaluation
 from ..io.arctable import load_arc_table
 from ..io.atomic import check_writable, staging_dir, write_files
+from ..io.pdf import html_to_pdf
 from ..io.surveys import SurveyData, read_survey
 from ..report.evaluation_files import evaluation_outputs
 
@@ -62,4 +63,6 @@ def evaluate_file(path, out_dir, config_path=None, sets=()) -> Evaluation:
                                input_sha256=sha256_file(path))
     with staging_dir(out_dir) as stage:
         write_files(stage, files)
+        if cfg.output.pdf:
+            html_to_pdf(stage / "report.html", stage / "report.pdf")
     return ev

@@ -21,6 +21,7 @@ from ..core.rng import Purpose, stream
 from ..errors import InputError, StageError
 from ..evaluate.results import Evaluation
 from ..io.atomic import check_writable, staging_dir, write_files
+from ..io.pdf import html_to_pdf
 from ..io.readers import open_scan
 from ..report.run_files import run_outputs
 from ..stages.frame import Frame, check_extent, make_frame
@@ -191,4 +192,6 @@ def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_ma
     files = run_outputs(res)
     with staging_dir(out_dir) as stage:
         write_files(stage, files)
+        if cfg.output.pdf:
+            html_to_pdf(stage / "report.html", stage / "report.pdf")
     return res
