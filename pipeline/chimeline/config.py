@@ -271,6 +271,7 @@ class InputConfig:
     up_axis: str = choice_field("z", ("z", "y"), doc="which file axis points up")
     chunk_size: int = rng_field(1_000_000, 10_000, 100_000_000, doc="points read per chunk")
     max_nonfinite_fraction: float = rng_field(0.01, 0.0, 1.0, doc="refuse the scan above this share of NaN/inf points")
+    setup: str = ""  # name of the scanner setup (instrument, step, stations), shown by compare
 
 
 @dataclass(frozen=True)
@@ -278,6 +279,12 @@ class FrameConfig:
     origin: Optional[tuple[float, float, float]] = None  # scan units; default: rounded median of the sample
     azimuth_reference_deg: float = rng_field(0.0, -360.0, 360.0, doc="direction of azimuth 0, degrees clockwise from +Y")
     azimuth_direction: str = choice_field("cw", ("cw", "ccw"))
+    azimuth_zero_at: Optional[tuple[float, float]] = None  # scan coordinates [x, y] of a feature: azimuth 0 points at it
+
+    def _check(self, prefix, source):
+        if self.azimuth_zero_at is not None and self.azimuth_reference_deg != 0.0:
+            raise ConfigError(f"{source}: set either '{_join(prefix, 'azimuth_zero_at')}' or "
+                              f"'{_join(prefix, 'azimuth_reference_deg')}', not both")
 
 
 @dataclass(frozen=True)

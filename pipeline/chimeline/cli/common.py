@@ -16,28 +16,43 @@ EXIT_ERROR = 2  # bad usage, bad input or any chimeline error; click's usage err
 
 
 class Progress:
-    """Progress callback: a tqdm bar on a terminal, nothing (INFO lines come from the workflows) otherwise."""
+    """One progress display for a whole run: a bar over the stages on a terminal (points while streaming), closed
+    before anything else is printed; nothing otherwise (the workflows log one INFO line per stage)."""
+
+    STAGES = ("read", "shell", "stream", "junction", "profile", "noise", "evaluate", "report")
 
     def __init__(self, quiet: bool):
         self.bar = None
         self.enabled = not quiet and sys.stderr.isatty()
+        self._other = None
 
-    def __call__(self, stage: str, done: int, total: int | None):
+    def __call__(self, stage: str, done: int | None = None, total: int | None = None):
         if not self.enabled:
             return
         from tqdm import tqdm
 
-        if self.bar is None or self.bar.desc != stage:
-            if self.bar is not None:
-                self.bar.close()
-            self.bar = tqdm(total=total, desc=stage, unit="pt", unit_scale=True, leave=False, file=sys.stderr)
-        self.bar.n = done
-        self.bar.refresh()
+        if stage in self.STAGES:
+            if self.bar is None:
+                self.bar = tqdm(total=len(self.STAGES), desc=stage, unit="stage", leave=False, file=sys.stderr,
+                                bar_format="{desc:<10} {bar} {n_fmt}/{total_fmt} stages {postfix}")
+            self.bar.n = self.STAGES.index(stage)
+            self.bar.set_description_str(stage, refresh=False)
+            self.bar.set_postfix_str(f"{done / 1e6:.1f} of {total / 1e6:.1f} M points" if done and total else "",
+                                     refresh=False)
+            self.bar.refresh()
+            return
+        if self._other is None or self._other.desc != stage:  # e.g. the simulator's rays
+            if self._other is not None:
+                self._other.close()
+            self._other = tqdm(total=total, desc=stage, unit="pt", unit_scale=True, leave=False, file=sys.stderr)
+        self._other.n = done or 0
+        self._other.refresh()
 
     def close(self):
-        if self.bar is not None:
-            self.bar.close()
-            self.bar = None
+        for bar in (self.bar, self._other):
+            if bar is not None:
+                bar.close()
+        self.bar = self._other = None
 
 
 def setup_logging(verbose: int, quiet: bool):

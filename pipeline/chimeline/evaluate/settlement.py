@@ -149,7 +149,7 @@ def evaluate_survey(s: SurveyData, tank: TankData, cfg: EvaluateConfig, table: A
                                   deflection_spacing=float(L), curvature_smoothing=float(spacing_k),
                                   min_evidence_coverage=cfg.min_evidence_coverage, reading_sigma=sigma,
                                   reading_sigma_source=sigma_src)
-    log.info("evaluate: tilt %.1f mm (R^2 %.3f, p %.2g), K = %d, verdict %s (%s)", tilt.amplitude * 1e3,
+    log.debug("evaluate: tilt %.1f mm (R^2 %.3f, p %.2g), K = %d, verdict %s (%s)", tilt.amplitude * 1e3,
              tilt.r_squared, tilt.f_test.p_value, four.order, verdict, governing)
     return Evaluation(survey=s, tank=tank, tilt=tilt, fourier=four, out_of_plane=u, out_of_plane_reference=ref,
                       model=model, deflection=deflection, curvature=curv, curvature_sparse=curv_sparse,

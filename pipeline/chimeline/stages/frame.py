@@ -5,6 +5,7 @@ The local origin is removed before any float work, so georeferenced coordinates
 """
 from __future__ import annotations
 
+import dataclasses
 import logging
 from dataclasses import dataclass
 
@@ -94,3 +95,14 @@ def check_extent(scan, local: np.ndarray, frame: Frame, min_radius: float, max_r
     hint = f"; if the scan is in {' or '.join(fits)}, set input.units" if fits else ""
     raise InputError(f"{scan}: the scan spans {span:.4g} m in plan with input.units = {frame.units!r}, absurd for a "
                      f"tank site{hint}")
+
+
+def tie_azimuth_zero(frame: Frame, shell, point_file, scan="") -> Frame:
+    """The frame with azimuth 0 pointing from the shell axis at a feature given in scan coordinates [x, y]."""
+    p = frame.file_xy_to_local(point_file)
+    dx, dy = p[0] - shell.center[0], p[1] - shell.center[1]
+    if np.hypot(dx, dy) < 0.05 * shell.radius:
+        raise InputError(f"{scan}: 'frame.azimuth_zero_at' {list(point_file)} lies at the tank centre; give a point "
+                         f"on or near the shell (a manway, a nameplate, survey point 1)")
+    ref = float(np.mod(np.degrees(np.arctan2(dx, dy)), 360.0))  # clockwise from +Y, either direction
+    return dataclasses.replace(frame, azimuth_reference_deg=ref)

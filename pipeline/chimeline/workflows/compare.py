@@ -14,10 +14,12 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from ..evaluate.comparison import brown_forsythe, profile_difference, variance_ratio
+from ..evaluate.comparison import (CONSISTENCY_NOTE, brown_forsythe, equivalence, noise_in_words, profile_difference,
+                                   variance_ratio)
 from ..io.atomic import check_writable, staging_dir, write_files
 from ..io.runfiles import read_run_folder
 from ..report.compare_html import compare_outputs
+from ..report.console import p_text
 from ..units import to_metres
 
 
@@ -32,7 +34,9 @@ def load_run(run_dir) -> dict:
         stations = [{"station": s["station"], "sigma": s["within_bin"]["sigma"] * f if s["within_bin"] else None,
                      "ci": [c * f for c in s["within_bin"]["ci"]] if s["within_bin"] else None,
                      "dof": s["within_bin"]["dof"] if s["within_bin"] else 0} for s in n.get("stations", [])]
-        out = {"dir": str(d), "tag": rf.get("tank", "tag") or d.name, "date": rf.get("tank", "survey_date") or "",
+        setup = (rf.config.get("input") or {}).get("setup") or ""
+        out = {"dir": str(d), "tag": rf.get("tank", "tag") or "", "date": rf.get("tank", "survey_date") or "",
+               "setup": setup, "name": setup or rf.get("tank", "survey_date") or d.name,
                "sigma": n["sigma"] * f, "ci": (ci[0] * f, ci[1] * f), "dof": n["within_bin"]["dof"],
                "datum_sigma": (n.get("datum_sigma") or 0) * f, "stations": stations,
                "center": rf.summary["shell"]["center"], "radius": rf.summary["shell"]["radius"] * f,
@@ -48,7 +52,7 @@ def load_run(run_dir) -> dict:
     return out
 
 
-def compare_runs(dirs, alpha=0.05) -> dict:
+def compare_runs(dirs, alpha=0.05, margin=0.1) -> dict:
     runs = [load_run(d) for d in dirs]
     if len(runs) < 2:
         raise InputError("compare needs at least two run folders")
@@ -59,6 +63,16 @@ def compare_runs(dirs, alpha=0.05) -> dict:
         if len(base["resid"]) and len(r["resid"]):
             vr["brown_forsythe"] = brown_forsythe(base["resid"], r["resid"])
         vr["noise_differs"] = vr["p_value"] <= alpha
+        eq = equivalence(base["sigma"], base["dof"], r["sigma"], r["dof"], margin, alpha)
+        eq["alpha"] = alpha
+        vr["equivalence"] = eq
+        vr["added_in_quadrature"] = math.sqrt(max(0.0, r["sigma"] ** 2 - base["sigma"] ** 2))
+        vr["in_words"] = noise_in_words(base["name"], r["name"], base["sigma"], r["sigma"], vr, eq, p_text)
+        by_id = {x["station"]: x for x in base["stations"] if x["sigma"]}
+        vr["stations"] = [dict(station=x["station"], **variance_ratio(by_id[x["station"]]["sigma"],
+                                                                      by_id[x["station"]]["dof"], x["sigma"], x["dof"]))
+                          for x in r["stations"] if x["sigma"] and x["station"] in by_id and x["dof"] and
+                          by_id[x["station"]]["dof"]]
         same_tank = (math.hypot(r["center"][0] - base["center"][0], r["center"][1] - base["center"][1])
                      * to_metres(r["units"]) < 0.5 and abs(r["radius"] - base["radius"]) < 0.05)
         if same_tank:
@@ -75,8 +89,10 @@ def compare_runs(dirs, alpha=0.05) -> dict:
                     pd["rate_per_year_se"] = pd["mean_difference_se"] / abs(dt)
             except ValueError:
                 pass
+        if "consistency_p" in pd:
+            pd["consistency_note"] = CONSISTENCY_NOTE
         pairs.append({"reference": base["dir"], "run": r["dir"], "noise": vr, "profile": pd, "same_tank": same_tank})
-    return {"runs": runs, "pairs": pairs, "alpha": alpha}
+    return {"runs": runs, "pairs": pairs, "alpha": alpha, "margin": margin}
 
 
 def write_compare(result, out_dir) -> dict:

@@ -31,6 +31,8 @@ def survey_from_run(res) -> SurveyData:
 def _evaluate(s: SurveyData, tank, cfg) -> Evaluation:
     table = load_arc_table(cfg.evaluate.arc_table)
     ev = evaluate_survey(s, tank, cfg.evaluate, table, seed=cfg.seed)
+    log.info("evaluate: %s, governed by %s; tilt %.1f mm (R^2 %.3f), Fourier K = %d", ev.verdict, ev.governing,
+             ev.tilt.amplitude * 1e3, ev.tilt.r_squared, ev.fourier.order)
     if cfg.evaluate.decimate:
         if not s.dense:
             ev = dataclasses.replace(ev, warnings=ev.warnings + ("evaluate.decimate applies to dense profiles only; "
@@ -38,6 +40,12 @@ def _evaluate(s: SurveyData, tank, cfg) -> Evaluation:
         else:
             ev = dataclasses.replace(ev, decimation=decimation_study(s, tank, cfg.evaluate, table,
                                                                                   seed=cfg.seed))
+            d = ev.decimation
+            if d.runs:
+                mr = d.max_deflection_ratio
+                log.info("decimation: %d %d-point surveys from the profile: max S/S_max min %.2f, median %.2f, max %.2f;"
+                         " %s", len(d.runs), d.n_points, mr["min"], mr["median"], mr["max"],
+                         ", ".join(f"{k} {v}" for k, v in d.verdicts.items() if v))
     return ev
 
 

@@ -24,7 +24,7 @@ from ..io.atomic import check_writable, staging_dir, write_files
 from ..io.pdf import html_to_pdf
 from ..io.readers import open_scan
 from ..report.run_files import run_outputs
-from ..stages.frame import Frame, check_extent, make_frame
+from ..stages.frame import Frame, check_extent, make_frame, tie_azimuth_zero
 from ..stages.junction import Junction, RingFilter, extract_junction
 from ..stages.noise import NoiseEstimate, attach_uncertainty, estimate_noise
 from ..stages.profile import Profile, bin_junction
@@ -70,6 +70,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     timings, warnings, counts = {}, [], {}
     scan = Path(scan)
     t = time.perf_counter()
+    progress("read", 0, None)
     src = open_scan(scan)
     rng = np.random.default_rng(cfg.seed)
     sample = src.sample(cfg.shell.sample_points, rng)
@@ -87,8 +88,17 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     timings["frame"] = time.perf_counter() - t
 
     t = time.perf_counter()
+    progress("shell", 0, None)
     shell = fit_shell(local, cfg.shell, rng, center_hint=hint, metres_per_unit=frame.metres_per_unit)
+    if cfg.frame.azimuth_zero_at is not None:
+        frame = tie_azimuth_zero(frame, shell, cfg.frame.azimuth_zero_at, scan)
+        log.info("frame: azimuth 0 points at %s: %.3f deg clockwise from +Y", list(cfg.frame.azimuth_zero_at),
+                 frame.azimuth_reference_deg)
     timings["shell"] = time.perf_counter() - t
+    log.info("shell: radius %.4f m, centre (%.3f, %.3f) m local, axis tilt %.4f deg, %d inliers, %.0f %% of the "
+             "circumference; %s", shell.radius, shell.center[0], shell.center[1],
+             float(np.degrees(np.arccos(min(1.0, abs(shell.axis[2]))))), shell.n_inliers, 100 * shell.coverage,
+             shell.selection)
 
     t = time.perf_counter()
     ring_filter = RingFilter(local, shell, frame, cfg.junction, src.n_points, cfg.seed)
@@ -120,12 +130,21 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     log.info("stream: %d points read, %d kept in the base ring", n_read, len(ring_pts))
 
     t = time.perf_counter()
+    progress("junction", 0, None)
     first = extract_junction(ring_pts, ring_sid, shell, frame, cfg.junction)
+    first_radius = shell.radius
     shell = refine_base(shell, ring_pts, first.base_z, cfg.shell)
     junction = extract_junction(ring_pts, ring_sid, shell, frame, cfg.junction)
     timings["junction"] = time.perf_counter() - t
+    pw = junction.projection_width
+    log.info("junction: %d candidates, %d within the height gate; projection width %s; radial window %.1f-%.1f mm",
+             junction.n_candidates, junction.n_gated, f"{pw * 1000:.0f} mm" if pw else "not found",
+             junction.radial_window[0] * 1000, junction.radial_window[1] * 1000)
+    log.debug("junction: ring %d points, base at %.4f m local; refined shell radius %.4f m (first pass %.4f m)",
+              junction.n_ring, junction.base_z, shell.radius, first_radius)
 
     t = time.perf_counter()
+    progress("profile", 0, None)
     profile = bin_junction(junction, cfg.profile, shell.radius)
     timings["profile"] = time.perf_counter() - t
     if profile.coverage < cfg.profile.min_coverage:
@@ -139,9 +158,20 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
         warnings.append(f"no junction data from {g0:.1f} to {g1:.1f} deg (gap left empty)")
 
     t = time.perf_counter()
+    progress("noise", 0, None)
     noise = estimate_noise(profile, junction, cfg.noise, cfg.profile.reject_k)
     profile = attach_uncertainty(profile, junction, noise)
     timings["noise"] = time.perf_counter() - t
+    log.info("profile: %d bins of %.3g deg, coverage %.1f %% ok, %d gap(s); %d of %d candidates rejected",
+             len(profile.azimuth_deg), profile.bin_width_deg, 100 * profile.coverage, len(profile.gaps),
+             int((~profile.kept).sum()), len(profile.kept))
+    log.info("noise: sigma %.3f mm [%.3f, %.3f] (within-bin); pairs %s; registration spread %.2f mm%s",
+             noise.sigma * 1e3, noise.ci[0] * 1e3, noise.ci[1] * 1e3,
+             f"{noise.pairs.sigma * 1e3:.3f} mm (F test p = {noise.agreement_p:.2g})" if noise.pairs else "none",
+             noise.registration_sigma * 1e3, "" if profile.leveled else " (station levelling not done)")
+    log.debug("noise: per station %s", "; ".join(
+        f"{st.station}: {st.within_bin.sigma * 1e3:.3f} mm, offset {st.offset * 1e3:+.2f} mm"
+        for st in noise.stations if st.within_bin is not None))
     if not noise.agree:
         warnings.append(f"noise estimators disagree: within-bin {noise.within_bin.sigma * 1e3:.2f} mm, pairs "
                         f"{noise.pairs.sigma * 1e3:.2f} mm (F test p = {noise.agreement_p:.2g})")
@@ -184,11 +214,15 @@ def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_ma
     sha = sha256_file(scan)
     timings["hash"] = time.perf_counter() - t
     t = time.perf_counter()
+    if progress is not None:
+        progress("evaluate", 0, None)
     ev = evaluate_run(res)
     if ev is not None:
         timings["evaluate"] = time.perf_counter() - t
     timings["total"] = time.perf_counter() - t0
     res = dataclasses.replace(res, input_sha256=sha, evaluation=ev, timings=timings)
+    if progress is not None:
+        progress("report", 0, None)
     files = run_outputs(res)
     with staging_dir(out_dir) as stage:
         write_files(stage, files)
