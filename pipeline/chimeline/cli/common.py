@@ -79,7 +79,14 @@ def fail(exc: ChimelineError):
 
 @contextmanager
 def reported(progress: Progress | None = None):
-    """Run a workflow; a ChimelineError becomes one stderr line and exit code 2 (progress cleared first)."""
+    """Run a workflow; a ChimelineError becomes one stderr line and exit code 2 (progress cleared first).
+    While a progress bar is on the terminal, log lines are written through it so they do not tear it."""
+    redirect = None
+    if progress is not None and progress.enabled:
+        from tqdm.contrib.logging import logging_redirect_tqdm
+
+        redirect = logging_redirect_tqdm()
+        redirect.__enter__()
     try:
         yield
     except ChimelineError as exc:
@@ -89,6 +96,8 @@ def reported(progress: Progress | None = None):
     finally:
         if progress is not None:
             progress.close()
+        if redirect is not None:
+            redirect.__exit__(None, None, None)
 
 
 def config_option(help_text="YAML config (default: the embedded one, copy in configs/default.yaml)."):
