@@ -12,6 +12,7 @@ from ..notices import CAUTION
 from ..units import INCH, UNIT_LABELS, to_metres
 from ..version import __version__
 from . import figures as F
+from .geometry import geometry_section_html
 
 CSS = """
 body{font-family:system-ui,-apple-system,'Segoe UI',Helvetica,Arial,sans-serif;color:#1d2b36;max-width:1080px;
@@ -60,7 +61,7 @@ def _fmt_len(v_m, units, small=False):
 
 
 def render_report(res=None, ev=None, units="m", figures=None, resolved=None, config_source="", input_info=None,
-                  title_tag="") -> str:
+                  title_tag="", geometry_figures=None) -> str:
     figures = figures or {}
     tag = title_tag or "(no tank tag)"
     date = ""
@@ -158,6 +159,9 @@ def render_report(res=None, ev=None, units="m", figures=None, resolved=None, con
             out.append(f"<tr><td>{r.start_deg:.2f}</td><td>{r.r_squared:.3f}</td><td>{r.tilt_p_value:.3g}</td>"
                        f"<td>{r.max_deflection_ratio:.2f}</td><td>{_verdict(r.verdict)}</td></tr>")
         out.append("</table>")
+    # ---- shell geometry (report.geometry builds the section)
+    if res is not None and getattr(res, "geometry", None) is not None:
+        out.append(geometry_section_html(res.geometry, units, geometry_figures or {}, embed_png))
     # ---- provenance
     out.append("<h2>Inputs and provenance</h2><table>")
     info = dict(input_info or {})
