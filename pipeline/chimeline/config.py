@@ -431,6 +431,8 @@ class GeometryConfig:
     plumb_tolerance: Union[float, str] = "reconstruction"  # reconstruction | new_construction | m
     vertical_reference_sigma: float = rng_field(2e-5, 0.0, 0.01, doc="rad, 1 sigma per axis of the scan's vertical "
                                                                       "(levelling, registration)")
+    registration_sigma_prior: float = rng_field(0.002, 0.0, 0.05, doc="m, 1 sigma plan shift of a station's points "
+                                                                       "(registration) assumed where not observed")
     roundness_heights: Union[str, tuple[float, ...]] = "auto"  # auto: 0.3 m and each course's mid-height; or m
     roundness_reference: str = choice_field("fitted", ("fitted", "nominal"),
                                             doc="radius deviation from the fitted circle, or from tank.diameter / 2")

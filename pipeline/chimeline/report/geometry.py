@@ -41,7 +41,7 @@ def plumb_verdicts(pl) -> np.ndarray:
 
 
 def roundness_verdicts(ro) -> np.ndarray:
-    return _verdicts(ro.deviation, ro.radius_se, ro.tolerance)
+    return _verdicts(ro.deviation, ro.deviation_se, ro.tolerance)
 
 
 def _verdicts(v, se, tol):
@@ -65,7 +65,7 @@ def geometry_checks(geo) -> list:
     for name, rows in (("radius at 0.3 m above the bottom (API 650 7.5.3, from memory)", at_std),
                        ("radius at the other heights (the 0.3 m tolerance, for orientation)", ~at_std)):
         if rows.any():
-            checks.append(_check(name, ro.deviation[rows], ro.radius_se[rows], ro.tolerance, rv[rows], az[rows],
+            checks.append(_check(name, ro.deviation[rows], ro.deviation_se[rows], ro.tolerance, rv[rows], az[rows],
                                  hh[rows], ro.tolerance_rule))
     return checks
 
@@ -130,14 +130,14 @@ def roundness_csv(geo, L: Lengths) -> str:
     u = _unit_tag(L.unit)
     v = roundness_verdicts(ro)
     header = ["azimuth_deg", f"height_{u}", f"radius_{u}", f"deviation_{u}", f"tolerance_{u}", f"std_error_{u}",
-              "ratio", "verdict", "n_points"]
+              "ratio", "verdict", "n_points", f"deviation_se_{u}"]
     rows = []
     for i, hh in enumerate(ro.heights):
         for j, a in enumerate(ro.azimuth_deg):
             d = ro.deviation[i, j]
             rows.append([_f(a), _f(L.length(hh)), _f(L.length(ro.radius[i, j])), _f(L.length(d)),
                          _f(L.length(ro.tolerance)), _f(L.length(ro.radius_se[i, j])), _f(abs(d) / ro.tolerance),
-                         v[i, j], int(ro.n_points[i, j])])
+                         v[i, j], int(ro.n_points[i, j]), _f(L.length(ro.deviation_se[i, j]))])
     return _csv(header, rows)
 
 
@@ -193,7 +193,7 @@ def geometry_summary(geo, L: Lengths, vertical_reference_sigma: float) -> dict:
         a = np.where(ok, np.abs(ro.deviation), -1.0)
         i, j = np.unravel_index(int(np.argmax(a)), a.shape)
         out["max_radius_deviation"] = {
-            "value": n(ro.deviation[i, j]), "std_error": n(ro.radius_se[i, j]), "azimuth_deg": _num(ro.azimuth_deg[j]),
+            "value": n(ro.deviation[i, j]), "std_error": n(ro.deviation_se[i, j]), "azimuth_deg": _num(ro.azimuth_deg[j]),
             "height": n(ro.heights[i]), "radius": n(ro.radius[i, j]), "tolerance": n(ro.tolerance),
             "ratio": _num(a[i, j] / ro.tolerance), "verdict": roundness_verdicts(ro)[i, j]}
     per = [{"height": n(h), "amplitude": n(ro.ovality[i]), "std_error": n(ro.ovality_se[i]),
@@ -238,8 +238,7 @@ def deviation_map_png(geo, units) -> bytes:
     f = to_metres(units)
     m = geo.deviation
     fig, ax = new_figure(10, 4.6)
-    cmap = matplotlib.colormaps["RdBu_r"].copy()
-    cmap.set_bad("#d9d9d9")
+    cmap = matplotlib.colormaps["RdBu_r"].with_extremes(bad="#d9d9d9")
     v = map_limits(m.deviation) * k
     h_top = (m.heights[-1] + (m.heights[1] - m.heights[0] if len(m.heights) > 1 else 0.25) / 2) / f
     im = ax.imshow(np.ma.masked_invalid(m.deviation * k), origin="lower", aspect="auto", cmap=cmap, vmin=-v, vmax=v,
@@ -361,7 +360,7 @@ def geometry_section_html(geo, units, figures: dict, embed) -> str:
     ok = np.isfinite(ro.deviation)
     if ok.any():
         i, j = np.unravel_index(int(np.nanargmax(np.where(ok, np.abs(ro.deviation), -1))), ro.deviation.shape)
-        rows.append(("largest radius deviation", f"{s(ro.deviation[i, j])} +- {s(ro.radius_se[i, j])} at "
+        rows.append(("largest radius deviation", f"{s(ro.deviation[i, j])} +- {s(ro.deviation_se[i, j])} at "
                      f"{ro.azimuth_deg[j]:.1f} deg, {ro.heights[i] / f:.2f} {ul}; tolerance +-{s(ro.tolerance)} "
                      f"({ro.reference} radius)"))
     for i, hh in enumerate(ro.heights):

@@ -55,6 +55,7 @@ PLUMB_SOURCE = {"reconstruction": "H/100, max 5 in (API 653 10.5.2, reconstructi
 IQR_TO_SIGMA = 1 / 1.3489795003921634  # normal: interquartile range = 2 Phi^-1(3/4) sigma (scipy.stats.norm.ppf)
 _COARSE_DEG, _COARSE_H, _CLASS = 5.0, 1.0, 0.002
 _PRIOR_DOF = 5.0  # weight (in degrees of freedom) of the pooled face variance in each bin's variance
+_PRIOR_PAIRS = 2.0  # weight (in overlapping station pairs) of geometry.registration_sigma_prior
 
 
 @dataclass(frozen=True)
@@ -84,8 +85,9 @@ class Roundness:
     azimuth_deg: np.ndarray  # (n_bins,) bin centres
     heights: np.ndarray  # (n_h,) m above the junction plane
     radius: np.ndarray  # (n_h, n_bins) m, nan = gap
-    radius_se: np.ndarray  # (n_h, n_bins) m, 1 sigma
+    radius_se: np.ndarray  # (n_h, n_bins) m, 1 sigma (the bin and the fitted centre)
     deviation: np.ndarray  # (n_h, n_bins) m, radius minus reference_radius
+    deviation_se: np.ndarray  # (n_h, n_bins) m, 1 sigma (the bin, the fitted centre and, if fitted, radius)
     n_points: np.ndarray  # (n_h, n_bins) int
     reference_radius: np.ndarray  # (n_h,) m, fitted mean radius (or nominal) of each section
     reference: str  # fitted | nominal
@@ -126,7 +128,9 @@ class ShellGeometry:
     shell_height_source: str  # config | measured
     course_tops: np.ndarray  # (n_courses,) m above the junction plane (the last: the shell top)
     face_sigma: float  # m, robust radial noise of a face point about its cell
-    registration_sigma: float  # m, between-station radial spread of a cell (variance component)
+    registration_sigma: float  # m, between-station radial spread adopted (estimate shrunk toward the prior)
+    registration_sigma_raw: float  # m, estimate from overlapping stations alone (nan: no overlap)
+    registration_pairs: int  # overlapping station pairs behind the estimate
     base_plane: np.ndarray  # (3,) m: junction plane z = a + b cos(az) + c sin(az) (local z, frame azimuth)
     n_face: int  # face points in
     n_kept: int  # after rejection
@@ -210,8 +214,12 @@ def measure_geometry(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
     top = float(np.quantile(h[keep], 0.999)) if keep.sum() > 100 else float(np.max(h, initial=0.0))
     P = _Points(az[keep], h[keep], d[keep], dx[keep], dy[keep], sid[keep], n_st, sigma_f, cfg)
     # 3. deviation map (also gives the registration variance component)
-    dmap, sigma_reg = _deviation_map(P, cfg, top, frame, r0)
+    dmap, (sigma_reg, reg_raw, n_pairs) = _deviation_map(P, cfg, top, frame, r0)
     P.sigma_reg = sigma_reg
+    if n_pairs == 0:
+        warnings.append(f"geometry: no two stations saw the same part of the shell, so their registration spread is "
+                        f"not observable; assumed geometry.registration_sigma_prior = "
+                        f"{cfg.registration_sigma_prior * 1e3:.1f} mm")
     # 4. sections
     tops = _course_tops(cfg, top)
     plumb_h = np.round([t - cfg.edge_margin - cfg.band_height / 2 for t in tops], 9)
@@ -231,15 +239,18 @@ def measure_geometry(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
     plumb = _plumbness(P, rings, plumb_h, courses, cfg, frame, H)
     roundness = _roundness(rings, round_h, cfg, frame, diameter if diameter is not None else 2 * r0,
                            "config" if diameter is not None else "fitted")
-    for hh, ring in rings.items():
-        if ring.coverage < 0.5:
-            warnings.append(f"geometry: only {100 * ring.coverage:.0f} % of the section {hh:.2f} m above the junction "
-                            f"was seen; its centre and modes are poorly determined")
+    thin = [hh for hh, ring in rings.items() if ring.coverage < 0.5]
+    if thin:
+        warnings.append(f"geometry: less than half of the section was seen at {len(thin)} of {len(rings)} measuring "
+                        f"heights ({', '.join(f'{h:.2f}' for h in thin[:6])}{' ...' if len(thin) > 6 else ''} m); "
+                        f"their centres and modes are poorly determined (standard errors say how); on a sparse scan "
+                        f"raise geometry.azimuth_step_deg or geometry.band_height, or lower geometry.min_points")
     log.info("geometry: %d face points, %d kept; face sigma %.2f mm, registration %.2f mm; shell top %.2f m",
              len(pts), int(keep.sum()), sigma_f * 1e3, sigma_reg * 1e3, top)
     return ShellGeometry(plumb=plumb, roundness=roundness, deviation=dmap, shell_top=top, shell_height=H,
                          shell_height_source=h_src, course_tops=np.asarray(tops), face_sigma=sigma_f,
-                         registration_sigma=sigma_reg, base_plane=plane, n_face=len(pts), n_kept=int(keep.sum()),
+                         registration_sigma=sigma_reg, registration_sigma_raw=reg_raw, registration_pairs=n_pairs,
+                         base_plane=plane, n_face=len(pts), n_kept=int(keep.sum()),
                          warnings=tuple(warnings))
 
 
@@ -406,14 +417,19 @@ def _groups(g, v, sid, n_groups, n_st, k, sigma_f, passes=3) -> _Groups:
                    n_stations=(st_n > 0).sum(axis=1), keep=kept, st_n=st_n, st_mean=st_mean, st_var=st_var)
 
 
-def _registration_sigma(G: _Groups, min_n=3) -> float:
-    """Between-station variance component of group means (method of moments over groups with >= 2 stations):
-    E[sum_s (m_s - mean)^2] = (S - 1) sigma_reg^2 + (S - 1) / S sum_s v_s."""
+def _registration_sigma(G: _Groups, prior: float, min_n=3) -> tuple[float, float, int]:
+    """Between-station radial spread of group means: (adopted sigma, raw estimate, station pairs behind it).
+
+    Method of moments over groups seen by >= 2 stations, E[sum_s (m_s - mean)^2] = (S - 1) sigma^2 + (S - 1) / S
+    sum_s v_s. Groups of one station pair share that pair's shift, so the estimate has about as many degrees of
+    freedom as overlapping station pairs; it is shrunk toward ``prior`` with the weight of two such pairs, and is
+    the prior itself when no stations overlap.
+    """
     ok = G.st_n >= min_n
     S = ok.sum(axis=1)
     use = S >= 2
     if use.sum() < 5:
-        return 0.0
+        return prior, float("nan"), 0
     m = np.where(ok, G.st_mean, 0.0)[use]
     v = np.where(ok, G.st_var, 0.0)[use]
     okk = ok[use]
@@ -421,8 +437,13 @@ def _registration_sigma(G: _Groups, min_n=3) -> float:
     mbar = m.sum(axis=1) / Su
     Q = (np.where(okk, (m - mbar[:, None]) ** 2, 0.0)).sum(axis=1)
     noise = (Su - 1) / Su * v.sum(axis=1)
-    est = (Q.sum() - noise.sum()) / (Su - 1).sum()
-    return float(np.sqrt(max(est, 0.0)))
+    est = max((Q.sum() - noise.sum()) / (Su - 1).sum(), 0.0)
+    idx = np.nonzero(okk)
+    pairs = {(a, b) for row in np.split(idx[1], np.cumsum(np.bincount(idx[0], minlength=len(okk)))[:-1])
+             for a in row for b in row if a < b}
+    n_pairs = len(pairs)
+    adopted = (n_pairs * est + _PRIOR_PAIRS * prior ** 2) / (n_pairs + _PRIOR_PAIRS)
+    return float(np.sqrt(adopted)), float(np.sqrt(est)), n_pairs
 
 
 def _se(G: _Groups, sigma_reg: float) -> np.ndarray:
@@ -440,7 +461,7 @@ def _deviation_map(P: _Points, cfg, top, frame, r0):
     ak = (P.az / step).astype(np.int64) % n_az
     hk = np.minimum((P.h / cfg.height_step).astype(np.int64), n_h - 1)
     G = _groups(hk * n_az + ak, P.d, P.sid, n_h * n_az, P.n_st, cfg.reject_k, P.sigma_f)
-    sigma_reg = _registration_sigma(G)
+    sigma_reg, raw, n_pairs = _registration_sigma(G, cfg.registration_sigma_prior)
     ok = G.n >= cfg.min_points
     az_c = (np.arange(n_az) + 0.5) * step
     h_c = (np.arange(n_h) + 0.5) * cfg.height_step
@@ -457,7 +478,8 @@ def _deviation_map(P: _Points, cfg, top, frame, r0):
     return DeviationMap(azimuth_deg=az_c, heights=h_c, deviation=dev, std_error=se,
                         n_points=G.n.astype(np.int64).reshape(n_h, n_az),
                         n_stations=G.n_stations.astype(np.int64).reshape(n_h, n_az),
-                        cylinder_center=np.array([coef[1], coef[2]]), cylinder_radius=float(r0 + coef[0])), sigma_reg
+                        cylinder_center=np.array([coef[1], coef[2]]), cylinder_radius=float(r0 + coef[0])), \
+        (sigma_reg, raw, n_pairs)
 
 
 # ---------------------------------------------------------------------------
@@ -473,7 +495,8 @@ class _Ring:
     center_cov: np.ndarray  # (2, 2) m^2, noise part
     center_reg: np.ndarray  # (S, 2, 2): centre error per unit plan translation of each station (registration)
     radius: np.ndarray  # (n_bins,) m from the fitted centre (pass 2)
-    radius_se: np.ndarray  # (n_bins,)
+    radius_se: np.ndarray  # (n_bins,) the bin and the centre
+    fitted_se: np.ndarray  # (n_bins,) the bin, the centre and the fitted radius (deviation from the fitted circle)
     n_radius: np.ndarray  # (n_bins,)
     coef: np.ndarray  # pass-2 Fourier coefficients [a0, a1, b1, a2, b2, ...] in the standard azimuth
     cov: np.ndarray  # their covariance, noise and registration
@@ -492,12 +515,14 @@ def _section(P: _Points, height, cfg, frame, r0) -> _Ring:
     G1 = _groups((az / step).astype(np.int64) % nb, d, sid, nb, P.n_st, cfg.reject_k, P.sigma_f)
     th = _std_rad(frame, (np.arange(nb) + 0.5) * step)
     ok = G1.n >= cfg.min_points
-    # the centre and the modes need the section seen over a fair share of the circumference
-    K = min(cfg.fourier_max_mode, int(ok.sum()) // 4) if ok.mean() >= 0.25 else 0
+    # a mode whose half wavelength fits in a gap can hide there: the order is capped by the largest gap, and the
+    # section needs a fair share of the circumference for its centre and modes
+    K = min(cfg.fourier_max_mode, int(ok.sum()) // 4, int(180.0 / (_largest_gap(ok) * step))) \
+        if ok.mean() >= 0.25 else 0
     if K < 2:
         nan = np.full(1 + 2 * max(K, 1), np.nan)
         return _Ring(height, G1, sel, np.full(2, np.nan), np.full((2, 2), np.nan), np.zeros((P.n_st, 2, 2)),
-                     np.full(nb, np.nan), np.full(nb, np.nan), np.zeros(nb, np.int64), nan,
+                     np.full(nb, np.nan), np.full(nb, np.nan), np.full(nb, np.nan), np.zeros(nb, np.int64), nan,
                      np.full((len(nan), len(nan)), np.nan), float(ok.mean()))
     coef, cov, J = _fourier(th, G1, ok, K, P.sigma_reg)
     center = np.array([coef[2], coef[1]])  # rho ~ R + cx sin + cy cos: b1 is cx, a1 is cy
@@ -509,9 +534,27 @@ def _section(P: _Points, height, cfg, frame, r0) -> _Ring:
     se2 = _se(G2, P.sigma_reg)
     coef2, cov2, J2 = _fourier(th, G2, ok2, K, P.sigma_reg)
     cov2 = cov2 + P.sigma_reg ** 2 * np.einsum("sik,sjk->ij", J2, J2)
+    # a bin's radius moves with the fitted centre; its deviation also with the fitted radius (pass-1 circle terms,
+    # noise and registration)
+    c1 = (cov + P.sigma_reg ** 2 * np.einsum("sik,sjk->ij", J, J))[:3, :3]
+    g = np.column_stack([np.ones(nb), np.cos(th), np.sin(th)])
+    var_c = np.einsum("bi,ij,bj->b", g[:, 1:], c1[1:, 1:], g[:, 1:])
+    var_f = np.einsum("bi,ij,bj->b", g, c1, g)
     return _Ring(height, G1, sel, center, cov[np.ix_([2, 1], [2, 1])], J[:, [2, 1], :],
-                 np.where(ok2, G2.mean + r0, np.nan), np.where(ok2, se2, np.nan), G2.n.astype(np.int64),
+                 np.where(ok2, G2.mean + r0, np.nan), np.where(ok2, np.sqrt(se2 ** 2 + var_c), np.nan),
+                 np.where(ok2, np.sqrt(se2 ** 2 + var_f), np.nan), G2.n.astype(np.int64),
                  coef2 + np.r_[r0, np.zeros(len(coef2) - 1)], cov2, float(ok2.mean()))
+
+
+def _largest_gap(ok) -> int:
+    """Longest circular run of bins without a value (at least 1)."""
+    if ok.all():
+        return 1
+    if not ok.any():
+        return len(ok)
+    k0 = int(np.argmax(ok))
+    runs = np.diff(np.nonzero(np.r_[True, np.roll(ok, -k0), True])[0]) - 1
+    return max(int(runs.max()), 1)
 
 
 def _fourier(th, G: _Groups, ok, K, sigma_reg):
@@ -551,6 +594,7 @@ def _roundness(rings, heights, cfg, frame, diameter, d_src) -> Roundness:
     n_modes = cfg.fourier_max_mode - 1
     radius = np.full((n_h, nb), np.nan)
     rse = np.full((n_h, nb), np.nan)
+    dse = np.full((n_h, nb), np.nan)
     npts = np.zeros((n_h, nb), np.int64)
     ref = np.full(n_h, np.nan)
     center = np.full((n_h, 2), np.nan)
@@ -561,6 +605,7 @@ def _roundness(rings, heights, cfg, frame, diameter, d_src) -> Roundness:
     for i, hh in enumerate(heights):
         r = rings[float(hh)]
         radius[i], rse[i], npts[i], center[i], cover[i] = r.radius, r.radius_se, r.n_radius, r.center, r.coverage
+        dse[i] = r.fitted_se if cfg.roundness_reference == "fitted" else r.radius_se
         if not np.isfinite(r.coef).all():
             continue
         ref[i] = r.coef[0] if cfg.roundness_reference == "fitted" else diameter / 2
@@ -576,7 +621,7 @@ def _roundness(rings, heights, cfg, frame, diameter, d_src) -> Roundness:
                 axis[i] = np.mod(t_long - ref_az if frame.azimuth_direction == "cw" else ref_az - t_long, 180.0)
     tol = radius_tolerance(cfg, diameter)
     return Roundness(azimuth_deg=az, heights=np.asarray(heights, float), radius=radius, radius_se=rse,
-                     deviation=radius - ref[:, None], n_points=npts, reference_radius=ref,
+                     deviation=radius - ref[:, None], deviation_se=dse, n_points=npts, reference_radius=ref,
                      reference=cfg.roundness_reference, center=center, modes=modes, modes_se=modes_se,
                      ovality=modes[:, 0].copy(), ovality_se=modes_se[:, 0].copy(),
                      ovality_axis_deg=axis, coverage=cover, tolerance=tol,
