@@ -256,20 +256,32 @@ def deviation_map_png(geo, units) -> bytes:
     return png_bytes(fig)
 
 
+def _by_height(n_h):
+    """(figure, axes, colour of height row i) for the per-height line plots."""
+    import matplotlib
+
+    fig, ax = new_figure(10, 3.8)
+    cmap = matplotlib.colormaps["viridis"]
+    return fig, ax, lambda i: cmap(i / max(n_h - 1, 1))
+
+
+def _azimuth_axis(ax, xlabel, ylabel):
+    ax.set_xticks(range(0, 361, 30))
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+    ax.grid(alpha=0.25, lw=0.5)
+
+
 def plumbness_png(geo, units) -> bytes:
     k, u = small_length(units)
     f = to_metres(units)
     pl = geo.plumb
-    fig, ax = new_figure(10, 3.8)
-    import matplotlib
-
-    cmap = matplotlib.colormaps["viridis"]
-    n_h = len(pl.heights)
-    for i in range(n_h):
+    fig, ax, colour = _by_height(len(pl.heights))
+    for i in range(len(pl.heights)):
         ok = np.isfinite(pl.total[i])
-        col = cmap(i / max(n_h - 1, 1))
         ax.errorbar(pl.azimuth_deg[ok], pl.total[i, ok] * k, yerr=Z95 * pl.total_se[i, ok] * k, fmt="o-", ms=3,
-                    lw=0.8, color=col, elinewidth=0.6, label=f"{pl.heights[i] / f:.2f} {UNIT_LABELS.get(units, units)}")
+                    lw=0.8, color=colour(i), elinewidth=0.6,
+                    label=f"{pl.heights[i] / f:.2f} {UNIT_LABELS.get(units, units)}")
     ax.axhline(pl.tolerance * k, color=LIMIT, ls="--", lw=1, label="tolerance")
     v = plumb_verdicts(pl)
     for mask, mk, lab in ((v == "exceeds", "x", "exceeds"), (v == "indeterminate", "s", "indeterminate")):
@@ -277,11 +289,8 @@ def plumbness_png(geo, units) -> bytes:
             ii, jj = np.nonzero(mask)
             ax.plot(pl.azimuth_deg[jj], pl.total[ii, jj] * k, mk, color=LIMIT, ms=7, mfc="none", label=lab)
     ax.set_xlim(-5, 360)
-    ax.set_xticks(range(0, 361, 30))
-    ax.set_xlabel("azimuth of the plumb line (deg)")
-    ax.set_ylabel(f"out-of-plumbness ({u})")
     ax.set_ylim(bottom=0)
-    ax.grid(alpha=0.25, lw=0.5)
+    _azimuth_axis(ax, "azimuth of the plumb line (deg)", f"out-of-plumbness ({u})")
     ax.legend(fontsize=7, frameon=False, ncol=4, title="height (95 % bars)", title_fontsize=7)
     return png_bytes(fig)
 
@@ -290,23 +299,16 @@ def roundness_png(geo, units) -> bytes:
     k, u = small_length(units)
     f = to_metres(units)
     ro = geo.roundness
-    fig, ax = new_figure(10, 3.8)
-    import matplotlib
-
-    cmap = matplotlib.colormaps["viridis"]
-    n_h = len(ro.heights)
-    for i in range(n_h):
-        lab = f"{ro.heights[i] / f:.2f} {UNIT_LABELS.get(units, units)}"
-        ax.plot(ro.azimuth_deg, ro.deviation[i] * k, lw=0.9, color=cmap(i / max(n_h - 1, 1)), label=lab)
+    fig, ax, colour = _by_height(len(ro.heights))
+    for i in range(len(ro.heights)):
+        ax.plot(ro.azimuth_deg, ro.deviation[i] * k, lw=0.9, color=colour(i),
+                label=f"{ro.heights[i] / f:.2f} {UNIT_LABELS.get(units, units)}")
     ax.axhspan(-ro.tolerance * k, ro.tolerance * k, color=BAND, alpha=0.25, lw=0, label="tolerance band")
     ax.axhline(ro.tolerance * k, color=LIMIT, ls="--", lw=1)
     ax.axhline(-ro.tolerance * k, color=LIMIT, ls="--", lw=1)
     ax.axhline(0, color=MUTED, lw=0.6)
     ax.set_xlim(0, 360)
-    ax.set_xticks(range(0, 361, 30))
-    ax.set_xlabel("azimuth (deg)")
-    ax.set_ylabel(f"radius deviation ({u})")
-    ax.grid(alpha=0.25, lw=0.5)
+    _azimuth_axis(ax, "azimuth (deg)", f"radius deviation ({u})")
     ax.legend(fontsize=7, frameon=True, framealpha=0.85, edgecolor="none", ncol=7, loc="lower center",
               title="height above the junction", title_fontsize=7)
     return png_bytes(fig)

@@ -182,7 +182,9 @@ class FaceSampler:
         """The kept points (m, 3) local m and their station ids (m,)."""
         if not self._pts:
             return np.zeros((0, 3)), np.zeros(0, np.int64)
-        return np.concatenate(self._pts), np.concatenate(self._st).astype(np.int64)
+        # keep one copy only (the chunks are dropped for the concatenation)
+        self._pts, self._st = [np.concatenate(self._pts)], [np.concatenate(self._st).astype(np.int64)]
+        return self._pts[0], self._st[0]
 
 
 def measure_geometry(pts: np.ndarray, station: np.ndarray, shell: ShellFit, frame, profile,
@@ -213,6 +215,7 @@ def measure_geometry(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
     keep = np.abs(resid) <= max(cfg.reject_k * sigma_f, 0.004)
     top = float(np.quantile(h[keep], 0.999)) if keep.sum() > 100 else float(np.max(h, initial=0.0))
     P = _Points(az[keep], h[keep], d[keep], dx[keep], dy[keep], sid[keep], n_st, sigma_f, cfg)
+    del dx, dy, az, h, d, sid, resid, near, keep, up  # the stage's memory is bounded by the face budget
     # 3. deviation map (also gives the registration variance component)
     dmap, (sigma_reg, reg_raw, n_pairs) = _deviation_map(P, cfg, top, frame, r0)
     P.sigma_reg = sigma_reg
@@ -246,11 +249,11 @@ def measure_geometry(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
                         f"their centres and modes are poorly determined (standard errors say how); on a sparse scan "
                         f"raise geometry.azimuth_step_deg or geometry.band_height, or lower geometry.min_points")
     log.info("geometry: %d face points, %d kept; face sigma %.2f mm, registration %.2f mm; shell top %.2f m",
-             len(pts), int(keep.sum()), sigma_f * 1e3, sigma_reg * 1e3, top)
+             len(pts), len(P.d), sigma_f * 1e3, sigma_reg * 1e3, top)
     return ShellGeometry(plumb=plumb, roundness=roundness, deviation=dmap, shell_top=top, shell_height=H,
                          shell_height_source=h_src, course_tops=np.asarray(tops), face_sigma=sigma_f,
                          registration_sigma=sigma_reg, registration_sigma_raw=reg_raw, registration_pairs=n_pairs,
-                         base_plane=plane, n_face=len(pts), n_kept=int(keep.sum()),
+                         base_plane=plane, n_face=len(pts), n_kept=len(P.d),
                          warnings=tuple(warnings))
 
 
