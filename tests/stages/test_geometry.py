@@ -209,6 +209,9 @@ def test_station_shifts_cancel_in_plumbness_and_are_covered_in_the_radius():
     e = e - np.nanmean(e)
     assert np.nanmean(np.abs(e) <= Z95 * ro.radius_se) >= 0.9
     assert np.nanmax(np.abs(e)) > 0.001  # the shifts are really there
+    # the shifts of six stations put a mode-2 pattern into the sections: the ovality's error must say so
+    err = ro.ovality - (OVAL0 + OVAL_GROWTH * ro.heights)
+    assert np.all(np.abs(err) <= 3 * ro.ovality_se) and np.abs(err).max() > 1e-4
 
 
 def test_face_sampler_is_bounded_uniform_and_seeded():
