@@ -154,7 +154,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
                         f"{noise.pairs.sigma * 1e3:.2f} mm (F test p = {noise.agreement_p:.2g})")
     if shell.others:
         warnings.append(f"{len(shell.others)} other cylinder(s) in view; chose the {shell.selection}")
-    geometry = _geometry(face, shell, frame, profile, cfg, counts, timings, warnings) if face else None
+    geometry = _geometry(face, stride // every, shell, frame, profile, cfg, counts, timings, warnings) if face else None
 
     counts.update(n_points_read=n_read, nonfinite_dropped=n_bad, sample=int(len(sample.xyz)),
                   shell_candidates=shell.n_candidates, shell_inliers=shell.n_inliers, ring=int(len(ring_pts)),
@@ -176,11 +176,11 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
                      plot_sample=plot_sample, ring_sample=rs, shell_sample=shell_sample, geometry=geometry)
 
 
-def _geometry(face, shell, frame, profile, cfg, counts, timings, warnings) -> Optional[ShellGeometry]:
+def _geometry(face, reader_stride, shell, frame, profile, cfg, counts, timings, warnings) -> Optional[ShellGeometry]:
     """The geometry stage on the face sample; tank data in scan units set its tolerances."""
     t = time.perf_counter()
     pts, sid = face.points()
-    counts.update(face_sample=int(len(pts)), face_sample_fraction=round(face.keep_fraction / face.stride, 6))
+    counts.update(face_sample=int(len(pts)), face_sample_fraction=round(face.keep_fraction / reader_stride, 6))
     if len(pts) < 1000:
         warnings.append(f"geometry: only {len(pts)} points on the shell face; no plumbness or roundness measured")
         return None
