@@ -97,12 +97,14 @@ def one_case(m, workdir):
     er = pl.radial - tp["offset_radial"]
     et = pl.tangential - tp["offset_tangential"]
     ok = np.isfinite(er)
+    okt = np.isfinite(pl.total)  # the total needs the section centres too
     tr = shell_truth.radius(scene, ro.azimuth_deg, ro.heights)
     dat = radial_datum(truth)
     e_abs = ro.radius - tr
     e_rel = e_abs - dat
     okr = np.isfinite(e_abs)
-    amp = SG.Tank(scene.tank, scene.settlement).ovality_amplitude(ro.heights + scene.settlement.uniform)
+    # a shrinking ovality passes through zero and turns by 90 degrees: the stage reports the amplitude, >= 0
+    amp = np.abs(SG.Tank(scene.tank, scene.settlement).ovality_amplitude(ro.heights + scene.settlement.uniform))
     zo = (ro.ovality - amp) / ro.ovality_se
     return {
         "n_points": syn.n_points, "D": scene.tank.diameter, "H": scene.tank.height,
@@ -111,8 +113,9 @@ def one_case(m, workdir):
         "rot_deg": scene.stations.common.registration.rotation_deg,
         "plumb_rms_radial_mm": float(np.sqrt(np.mean(er[ok] ** 2)) * 1e3) if ok.any() else np.nan,
         "plumb_rms_tangential_mm": float(np.sqrt(np.nanmean(et[ok] ** 2)) * 1e3) if ok.any() else np.nan,
-        "plumb_within": float(np.mean(np.abs(pl.total - tp["offset_total"])[ok] <= Z95 * pl.total_se[ok])),
-        "plumb_lines": float(ok.mean()),
+        "plumb_within": (float(np.mean(np.abs(pl.total - tp["offset_total"])[okt] <= Z95 * pl.total_se[okt]))
+                         if okt.any() else np.nan),
+        "plumb_lines": float(okt.mean()),
         "radius_rms_mm": float(np.sqrt(np.mean(e_abs[okr] ** 2)) * 1e3),
         "radius_rms_rel_datum_mm": float(np.sqrt(np.mean(e_rel[okr] ** 2)) * 1e3),
         "radius_within_rel_datum": float(np.mean(np.abs(e_rel[okr]) <= Z95 * ro.radius_se[okr])),

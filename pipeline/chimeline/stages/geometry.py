@@ -7,14 +7,15 @@ measured in the scan frame with its up axis as the vertical:
 1. heights: metres above the junction plane (the cosine fit of the profile), so a rigidly tilted tank's course
    seams sit at one height all round; horizontal distance ``rho`` from the vertical through the shell's base
    centre, azimuth in the frame's convention;
-2. face: per 5 deg x 1 m cell the densest 2 mm class of rho (the face piles up in one class; stair treads, pipes
-   and mixed pixels spread out), interpolated to each point; points beyond ``reject_k`` face sigmas of it are
-   dropped, then each cell, bin or window rejects about its own median by its interquartile scale;
+2. face: per 5 deg x ``height_step`` cell the densest 2 mm class of rho (the face piles up in one class; stair
+   treads, pipes and mixed pixels spread out); points beyond ``reject_k`` face sigmas of it are dropped, then each
+   cell, bin or window rejects about its own median by its interquartile scale;
 3. deviation map: the mean face per ``azimuth_step_deg`` x ``height_step`` cell minus the best vertical cylinder
    (least squares over the cells); cells with fewer than ``min_points`` are gaps;
 4. sections: at each measuring height a band of ``band_height``; azimuth bins, then a weighted Fourier fit of
-   rho (modes 0..``fourier_max_mode``): mode 1 is the section's centre, mode 2 the ovality. Radii are then taken
-   from that centre; the deviation is from the fitted radius (or the nominal one);
+   rho (modes 0..``fourier_max_mode``, fewer where a mode's half wavelength fits in the largest gap): mode 1 is the
+   section's centre, mode 2 the ovality. Radii are then taken from that centre; the deviation is from the fitted
+   radius (or the nominal one);
 5. out-of-plumbness along vertical lines every ``plumb_step_deg``: radial = face at a course top (or the shell top)
    minus face at ``plumb_reference_height``, taken per station and combined, so a station's registration shift
    cancels; tangential = the shift of the section centre between the two heights, along increasing azimuth.
