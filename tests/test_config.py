@@ -71,7 +71,7 @@ def test_every_ranged_key_rejects_out_of_range(key, value):
 
 def test_generated_cases_cover_the_stage_sections():
     keys = {k.split(".")[0] for k, _ in _generated_bad_values()}
-    assert {"input", "frame", "shell", "junction", "profile", "noise", "output", "evaluate"} <= keys
+    assert {"input", "frame", "shell", "junction", "profile", "noise", "output", "evaluate", "geometry"} <= keys
 
 
 def test_unknown_key_suggests_the_nearest():

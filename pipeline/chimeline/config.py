@@ -425,6 +425,65 @@ class OutputConfig:
     pdf: bool = False  # also print report.html to report.pdf with headless Chromium
 
 
+#: radius tolerance by nominal diameter, from memory of API 650 7.5.3 (stated there at 1 ft above the bottom corner
+#: weld): rows [smallest diameter m, +- tolerance m]; < 40 ft: 1/2 in, 40-150 ft: 3/4 in, 150-250 ft: 1 in,
+#: >= 250 ft: 1-1/4 in. Verify against the governing edition.
+RADIUS_TOLERANCE_TABLE = [[0.0, 0.0127], [12.192, 0.01905], [45.72, 0.0254], [76.2, 0.03175]]
+PLUMB_RULES = ("reconstruction", "new_construction")
+
+
+@dataclass(frozen=True)
+class GeometryConfig:
+    enabled: bool = True  # measure out-of-plumbness, roundness and the deviation map from the shell face
+    face_budget: int = rng_field(800_000, 10_000, 100_000_000, doc="shell-face points kept at all heights from the "
+                                                                    "whole scan (bounds memory)")
+    face_band: float = rng_field(0.15, 0.02, 2.0, doc="m either side of the fitted shell kept while streaming")
+    azimuth_step_deg: float = rng_field(1.0, 0.1, 10.0, doc="azimuth bins of the roundness and the deviation map")
+    height_step: float = rng_field(0.25, 0.05, 2.0, doc="m, height rows of the deviation map")
+    band_height: float = rng_field(0.2, 0.05, 1.0, doc="m, height of the band averaged at each measuring height")
+    edge_margin: float = rng_field(0.1, 0.0, 1.0, doc="m between a measuring band and a course seam or the shell top")
+    min_points: int = rng_field(8, 3, 100_000, doc="face points a bin, cell or plumb line needs; fewer is a gap")
+    reject_k: float = rng_field(3.5, 2.0, 20.0, doc="robust z-score beyond which face points are rejected")
+    course_height: float = rng_field(2.4, 0.5, 5.0, doc="m, equal courses unless course_heights is given")
+    course_heights: Optional[tuple[float, ...]] = rng_field(None, 0.3, 10.0, doc="m per course, bottom first")
+    plumb_step_deg: float = rng_field(10.0, 1.0, 90.0, doc="azimuth step of the vertical plumb lines")
+    plumb_reference_height: float = rng_field(0.3, 0.05, 3.0, doc="m above the junction: the bottom of each line")
+    plumb_tolerance: Union[float, str] = "reconstruction"  # reconstruction | new_construction | m
+    vertical_reference_sigma: float = rng_field(2e-5, 0.0, 0.01, doc="rad, 1 sigma per axis of the scan's vertical "
+                                                                      "(levelling, registration)")
+    registration_sigma_prior: float = rng_field(0.002, 0.0, 0.05, doc="m, 1 sigma plan shift of a station's points "
+                                                                       "(registration) assumed where not observed")
+    roundness_heights: Union[str, tuple[float, ...]] = "auto"  # auto: 0.3 m and each course's mid-height; or m
+    roundness_reference: str = choice_field("fitted", ("fitted", "nominal"),
+                                            doc="radius deviation from the fitted circle, or from tank.diameter / 2")
+    radius_tolerance_table: tuple[tuple[float, float], ...] = rng_field(RADIUS_TOLERANCE_TABLE, 0.0, 1000.0,
+                                                                        doc="[smallest diameter m, tolerance m]")
+    fourier_max_mode: int = rng_field(8, 2, 60, doc="highest Fourier mode of the radius reported per height")
+
+    def _check(self, prefix, source):
+        t = self.plumb_tolerance
+        if isinstance(t, str) and t not in PLUMB_RULES:
+            raise ConfigError(f"{source}: '{_join(prefix, 'plumb_tolerance')}' must be {' or '.join(PLUMB_RULES)} "
+                              f"or a length in m, got {t!r}")
+        if not isinstance(t, str) and not 0 < t <= 1.0:
+            raise ConfigError(f"{source}: '{_join(prefix, 'plumb_tolerance')}' must be a length in (0, 1] m, got {t!r}")
+        h = self.roundness_heights
+        if isinstance(h, str) and h != "auto":
+            raise ConfigError(f"{source}: '{_join(prefix, 'roundness_heights')}' must be 'auto' or a list of heights "
+                              f"in m, got {h!r}")
+        if not isinstance(h, str) and (not h or any(not 0.05 <= v <= 100.0 for v in h)):
+            raise ConfigError(f"{source}: '{_join(prefix, 'roundness_heights')}' must be 'auto' or a list of heights "
+                              f"in [0.05, 100] m, got {list(h)!r}")
+        rows = self.radius_tolerance_table
+        if not rows or rows[0][0] != 0 or any(b[0] <= a[0] for a, b in zip(rows, rows[1:])):
+            raise ConfigError(f"{source}: '{_join(prefix, 'radius_tolerance_table')}' must list [smallest diameter m, "
+                              f"tolerance m] rows starting at 0 with increasing diameters, got "
+                              f"{[list(r) for r in rows]!r}")
+        if any(r[1] <= 0 for r in rows):
+            raise ConfigError(f"{source}: '{_join(prefix, 'radius_tolerance_table')}' tolerances must be > 0 m, got "
+                              f"{[list(r) for r in rows]!r}")
+
+
 @dataclass(frozen=True)
 class ChimelineConfig:
     """The whole run configuration: one section per stage plus the tank data and the evaluation."""
@@ -439,6 +498,7 @@ class ChimelineConfig:
     noise: NoiseConfig = field(default_factory=NoiseConfig)
     output: OutputConfig = field(default_factory=OutputConfig)
     evaluate: EvaluateConfig = field(default_factory=EvaluateConfig)
+    geometry: GeometryConfig = field(default_factory=GeometryConfig)
 
 
 def load_config(path=None, sets=(), *, mapping: dict | None = None,

@@ -26,14 +26,14 @@ def run_dir(simulate, tmp_path_factory):
 def test_report_files_and_content(run_dir):
     names = {p.name for p in (run_dir / "plots").iterdir()}
     assert {"plan.png", "profile.png", "out_of_plane.png", "deflection.png", "curvature.png", "arcs.png", "noise.png",
-            "shell.png"} <= names
+            "shell.png", "shell_deviation.png", "plumbness.png", "roundness.png"} <= names
     for p in (run_dir / "plots").iterdir():
         assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     html = (run_dir / "report.html").read_text()
     assert "GM-TK-02" in html and "2026-06-15" in html
     assert "qualified tank engineer or authorized inspector" in html
     assert "ILLUSTRATIVE" in html
-    assert len(re.findall(r'src="data:image/png;base64,', html)) == 8
+    assert len(re.findall(r'src="data:image/png;base64,', html)) == 11  # 8 settlement + 3 shell geometry
     assert "http://" not in html and "https://" not in html  # self-contained: nothing to fetch
     js = json.loads((run_dir / "evaluation.json").read_text())
     v = js["verdict"]
@@ -69,7 +69,7 @@ def test_report_renders_in_headless_chromium(run_dir, tmp_path):
                        timeout=120, text=True)
     m = re.search(r"<title>IMAGES:(\d+):(\d+)</title>", r.stdout)
     assert m, r.stdout[:500]
-    assert int(m.group(1)) == 8 and int(m.group(2)) == 8
+    assert int(m.group(1)) == 11 and int(m.group(2)) == 11
     im = np.asarray(Image.open(png).convert("L"))
     assert im.std() > 10  # not a blank page
 

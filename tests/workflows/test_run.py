@@ -67,7 +67,7 @@ def test_same_input_and_config_give_the_same_bytes(tmp_path, small_scan):
         invoke(["-q", "run", scan, "--out", tmp_path / name, "--set", "tank.shell_height=6", "--set",
                 "tank.yield_strength=250 MPa"])
     for f in ("profile.csv", "residuals.csv", "evaluation.json", "evaluation.csv", "fe_out_of_plane.csv",
-              "config.resolved.yaml"):
+              "config.resolved.yaml", "plumbness.csv", "roundness.csv", "shell_deviation.csv"):
         assert (tmp_path / "a" / f).read_bytes() == (tmp_path / "b" / f).read_bytes(), f
     a, b = (json.loads((tmp_path / n / "profile.json").read_text()) for n in "ab")
     for d in (a, b):

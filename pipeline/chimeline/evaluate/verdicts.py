@@ -9,6 +9,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..core.circular import run_ranges
+from ..core.robust import Z95
 from .results import Criterion
 
 SEVERITY = {"acceptable": 0, "indeterminate": 1, "exceeds": 2}
@@ -66,3 +67,12 @@ def overall(criteria) -> tuple[str, str]:
         return "indeterminate", f"none of the standard's checks could be made ({why})"
     worst = max(deciding, key=lambda c: (SEVERITY[c.verdict], c.ratio if c.ratio is not None else -1.0))
     return worst.verdict, worst.name
+
+
+def banded(value, sd, limit):
+    """Per location: (exceeds, indeterminate) masks of |value| +- Z95 sd against ``limit`` (construction
+    tolerances of the shell geometry use this band rule)."""
+    lo = np.abs(value) - Z95 * np.asarray(sd)
+    hi = np.abs(value) + Z95 * np.asarray(sd)
+    ex = lo > limit
+    return ex, (~ex) & (hi > limit)

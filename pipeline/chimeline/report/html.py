@@ -8,6 +8,7 @@ import html
 
 from . import figures as F
 from .document import report_context
+from .geometry import geometry_section_html
 
 CSS = """
 body{font-family:system-ui,-apple-system,'Segoe UI',Helvetica,Arial,sans-serif;color:#1d2b36;max-width:1080px;
@@ -41,8 +42,11 @@ def template_env():
 
 
 def render_report(res=None, ev=None, units="m", figures=None, resolved=None, config_source="", input_info=None,
-                  title_tag="") -> str:
+                  title_tag="", geometry_figures=None) -> str:
     ctx = report_context(res, ev, units, figures, resolved, config_source, input_info, title_tag, png_data_uri)
+    geo = getattr(res, "geometry", None) if res is not None else None
+    ctx["geometry_html"] = (geometry_section_html(geo, units, geometry_figures or {}, embed_png)
+                            if geo is not None else "")
     ctx.setdefault("measurement", None)
     for key in ("points", "worst", "dips", "arcs", "decimation"):
         ctx.setdefault(key, None)

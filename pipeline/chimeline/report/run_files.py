@@ -12,6 +12,7 @@ from ..io.runfiles import CONFIG_YAML, PROFILE_CSV, PROFILE_JSON, RESIDUALS_CSV,
 from ..notices import CAUTION, VERTICAL_REFERENCE
 from ..units import UNIT_LABELS
 from .evaluation_files import evaluation_run_files
+from .geometry import geometry_figures, geometry_files, geometry_summary
 from .html import render_report, run_figures
 from .lengths import Lengths
 from .quicklook import quicklook
@@ -84,6 +85,8 @@ def profile_summary(res) -> dict:
         "timings_s": {k: round(v, 3) for k, v in res.timings.items()},
         "warnings": list(res.warnings),
         "vertical_reference": VERTICAL_REFERENCE,
+        "geometry": (geometry_summary(res.geometry, L, res.config.geometry.vertical_reference_sigma)
+                     if res.geometry is not None else None),
         "caution": CAUTION,
     }
 
@@ -107,12 +110,15 @@ def run_outputs(res) -> dict:
     if res.evaluation is not None:
         files.update(evaluation_run_files(res.evaluation, res.out_units))
     files[RESIDUALS_CSV] = residual_table(res).to_csv()
+    files.update(geometry_files(res))
     figs = run_figures(res, res.evaluation, res.out_units) if res.config.output.plots else {}
-    for name, png in figs.items():
+    gfigs = geometry_figures(res.geometry, res.out_units) if res.geometry is not None and res.config.output.plots else {}
+    for name, png in {**figs, **gfigs}.items():
         files[f"plots/{name}.png"] = png
     info = {"scan": str(res.scan_path), "sha256": res.input_sha256, "points read": res.n_points_read,
             "scan units": f"{res.frame.units} ({res.frame.units_source})",
             "local origin (scan units)": ", ".join(f"{v:.3f}" for v in res.frame.origin)}
     files["report.html"] = render_report(res, res.evaluation, res.out_units, figs, res.resolved,
-                                         res.config_source, info, res.config.tank.tag or res.scan_path.stem)
+                                         res.config_source, info, res.config.tank.tag or res.scan_path.stem,
+                                         geometry_figures=gfigs)
     return files

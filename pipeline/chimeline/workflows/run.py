@@ -25,10 +25,12 @@ from ..io.pdf import html_to_pdf
 from ..io.readers import open_scan
 from ..report.run_files import run_outputs
 from ..stages.frame import Frame, check_extent, make_frame, tie_azimuth_zero
+from ..stages.geometry import FaceSampler, ShellGeometry, measure_geometry
 from ..stages.junction import Junction, RingFilter, extract_junction
 from ..stages.noise import NoiseEstimate, attach_uncertainty, estimate_noise
 from ..stages.profile import Profile, bin_junction
 from ..stages.shell import ShellFit, fit_shell, refine_base
+from ..units import PINT_NAMES, parse_quantity
 from .evaluate import evaluate_run
 
 log = logging.getLogger(__name__)
@@ -56,6 +58,7 @@ class RunResult:
     ring_sample: np.ndarray  # (k, 3) local m, ring points for plots
     shell_sample: np.ndarray  # (s, 3) local m, points near the shell face at all heights
     evaluation: Optional[Evaluation] = None
+    geometry: Optional[ShellGeometry] = None  # None with geometry.enabled: false or too little shell face
 
     @property
     def out_units(self) -> str:
@@ -104,9 +107,11 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     ring_filter = RingFilter(local, shell, frame, cfg.junction, src.n_points, cfg.seed)
     ring, ring_st, plot_parts = [], [], []
     stride = max(1, src.n_points // 150_000)
+    face = FaceSampler(local, shell, cfg.geometry, src.n_points, cfg.seed) if cfg.geometry.enabled else None
+    every = max(1, stride // face.stride) if face else 1  # the reader strides for the face; plots take every k-th
     n_read = n_bad = 0
     up = 2 if frame.up_axis == "z" else 1
-    for n, band, strided, bad in src.stream(cfg.input.chunk_size, up, ring_filter.up_band_file(), stride):
+    for n, band, strided, bad in src.stream(cfg.input.chunk_size, up, ring_filter.up_band_file(), stride // every):
         n_read += n
         n_bad += bad
         ok = np.isfinite(band.xyz).all(axis=1)
@@ -115,8 +120,11 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
         kp, ks = ring_filter(p, sid)
         ring.append(kp)
         ring_st.append(ks)
-        sp = strided.xyz[np.isfinite(strided.xyz).all(axis=1)]
-        plot_parts.append(frame.to_local(sp))
+        fin_s = np.isfinite(strided.xyz).all(axis=1)
+        sp = frame.to_local(strided.xyz[fin_s])
+        if face is not None:
+            face(sp, strided.source_id[fin_s] if strided.source_id is not None else np.zeros(len(sp), np.int64))
+        plot_parts.append(sp[::every])
         progress("stream", n_read, src.n_points)
     counts["face_keep_fraction"] = round(ring_filter.face_keep_fraction, 6)
     if n_read and n_bad / n_read > cfg.input.max_nonfinite_fraction:
@@ -177,6 +185,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
                         f"{noise.pairs.sigma * 1e3:.2f} mm (F test p = {noise.agreement_p:.2g})")
     if shell.others:
         warnings.append(f"{len(shell.others)} other cylinder(s) in view; chose the {shell.selection}")
+    geometry = _geometry(face, stride // every, shell, frame, profile, cfg, counts, timings, warnings) if face else None
 
     counts.update(n_points_read=n_read, nonfinite_dropped=n_bad, sample=int(len(sample.xyz)),
                   shell_candidates=shell.n_candidates, shell_inliers=shell.n_inliers, ring=int(len(ring_pts)),
@@ -195,7 +204,25 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     return RunResult(scan_path=scan, config=cfg, resolved=resolved, config_source=source, frame=frame, shell=shell,
                      junction=junction, profile=profile, noise=noise, counts=counts, timings=timings,
                      warnings=tuple(warnings), input_sha256="", n_points_read=n_read,
-                     plot_sample=plot_sample, ring_sample=rs, shell_sample=shell_sample)
+                     plot_sample=plot_sample, ring_sample=rs, shell_sample=shell_sample, geometry=geometry)
+
+
+def _geometry(face, reader_stride, shell, frame, profile, cfg, counts, timings, warnings) -> Optional[ShellGeometry]:
+    """The geometry stage on the face sample; tank data in scan units set its tolerances."""
+    t = time.perf_counter()
+    pts, sid = face.points()
+    counts.update(face_sample=int(len(pts)), face_sample_fraction=round(face.keep_fraction / reader_stride, 6))
+    if len(pts) < 1000:
+        warnings.append(f"geometry: only {len(pts)} points on the shell face; no plumbness or roundness measured")
+        return None
+    unit = PINT_NAMES[frame.units]
+    tc = cfg.tank
+    H = parse_quantity(tc.shell_height, "length", unit, "tank.shell_height") if tc.shell_height is not None else None
+    D = parse_quantity(tc.diameter, "length", unit, "tank.diameter") if tc.diameter is not None else None
+    geo = measure_geometry(pts, sid, shell, frame, profile, cfg.geometry, shell_height=H, diameter=D)
+    warnings.extend(geo.warnings)
+    timings["geometry"] = time.perf_counter() - t
+    return geo
 
 
 def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_mapping: dict | None = None,
