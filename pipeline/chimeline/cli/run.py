@@ -12,7 +12,7 @@ run_wf = lazy_import("chimeline.workflows.run")
 
 
 @click.command()
-@click.argument("scan", type=click.Path(path_type=Path))
+@click.argument("scan", nargs=-1, required=True, type=click.Path(path_type=Path))
 @config_option()
 @set_option()
 @out_option()
@@ -20,7 +20,9 @@ run_wf = lazy_import("chimeline.workflows.run")
 def run(ctx, scan, config_path, sets, out_dir):
     """Turn a registered scan into a junction profile with uncertainty and noise.
 
-    Reads LAS/LAZ, PLY/PCD, E57, ASCII (.xyz .txt .pts .csv) or .npy. Writes
+    Reads LAS/LAZ/COPC, E57, PTX, PLY, PCD, ASCII (.xyz .txt .pts .csv .asc) or
+    .npy. Several files (tiles, or one file per station), a folder or a quoted
+    glob pattern make one scan. Writes
     profile.csv, profile.json, config.resolved.yaml and quicklook.png into OUT;
     with tank data in the config (shell_height, yield_strength) it also
     evaluates the settlement. A failed run writes nothing.
@@ -28,7 +30,7 @@ def run(ctx, scan, config_path, sets, out_dir):
     pairs = set_pairs(sets)
     progress = Progress(ctx.obj["quiet"])
     with reported(progress):
-        res = run_wf.run_scan(scan, out_dir, config_path, pairs, progress)
+        res = run_wf.run_scan(list(scan), out_dir, config_path, pairs, progress)
     n = res.noise
     click.echo(f"wrote {out_dir}/profile.csv ({len(res.profile.azimuth_deg)} bins, {100 * res.profile.coverage:.1f} % ok); "
                f"noise sigma {n.sigma * 1e3:.2f} mm [{n.ci[0] * 1e3:.2f}, {n.ci[1] * 1e3:.2f}]")

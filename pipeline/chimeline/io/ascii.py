@@ -17,7 +17,7 @@ from typing import Optional
 import numpy as np
 
 from ..errors import InputError
-from .source import Chunk, ScanSource, short
+from .source import Chunk, ScanSource, sample_windows, short
 
 log = logging.getLogger(__name__)
 
@@ -178,7 +178,11 @@ class NpySource(ScanSource):
 
     def sample(self, n, rng):
         """A random sample; for 32-bit float arrays it also sets ``coordinate_quantum``."""
-        idx = np.arange(self.n_points) if n >= self.n_points else np.sort(rng.choice(self.n_points, n, replace=False))
+        if n >= self.n_points:
+            idx = np.arange(self.n_points)
+        else:
+            starts, w = sample_windows(self.n_points, n, rng)
+            idx = np.unique(np.concatenate([np.arange(s, min(s + w, self.n_points)) for s in starts]))
         out = split_columns(np.asarray(self.arr[idx][:, self.usecols], dtype=np.float64), self.has_source_id)
         if self.storage == "float32":
             fin = out.xyz[np.isfinite(out.xyz).all(axis=1)]

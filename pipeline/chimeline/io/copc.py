@@ -95,7 +95,7 @@ class CopcSource(LasSource):
                 self.decoded = before
             return raw
 
-        raw = self._filtered(self._guarded(run, "reading the octree's coarse levels"))
+        raw = self._filtered(self._guarded(run, "reading the octree's coarse levels"), count=False)
         if len(raw) > n:
             raw = raw[np.sort(rng.choice(len(raw), n, replace=False))]
         return self._scaled(raw)

@@ -20,14 +20,11 @@ import numpy as np
 
 from ..errors import InputError
 from .crs import CrsUnits, units_from_geokeys, units_from_wkt
-from .source import Chunk, ScanSource, concat_chunks, decoder_failure, short
+from .source import WINDOW_GRID, Chunk, ScanSource, concat_chunks, decoder_failure, sample_windows, short, \
+    windows_from_chunks
 
 log = logging.getLogger(__name__)
 
-#: windows of the detection sample start on multiples of this many points (the LASzip default chunk size)
-WINDOW_GRID = 50_000
-#: most windows the detection sample reads
-MAX_WINDOWS = 48
 #: smallest record of a VLR and an EVLR header (bytes)
 VLR_HEADER, EVLR_HEADER = 54, 60
 
@@ -45,6 +42,7 @@ class LasLayout:
     n_points: int
     evlr_start: int  # 0 when none
     n_evlrs: int
+    waveform_start: int  # LAS 1.3+: start of the waveform data packets (0 when none or external)
     compressed: bool
     file_size: int
 
@@ -61,7 +59,9 @@ def read_layout(path: Path) -> LasLayout:
         fmt_byte, rec_len, legacy_n = struct.unpack_from("<BHI", head, 104)
         compressed = bool(fmt_byte & 0x80) or bool(fmt_byte & 0x40)
         fmt = fmt_byte & 0x3F
-        n_points, evlr_start, n_evlrs = legacy_n, 0, 0
+        n_points, evlr_start, n_evlrs, waveform = legacy_n, 0, 0, 0
+        if (major, minor) >= (1, 3) and len(head) >= 235:
+            waveform = struct.unpack_from("<Q", head, 227)[0]
         if (major, minor) >= (1, 4) and len(head) >= 375:
             evlr_start, n_evlrs, n14 = struct.unpack_from("<QIQ", head, 235)
             n_points = n14 or legacy_n
@@ -92,20 +92,20 @@ def read_layout(path: Path) -> LasLayout:
     if rec_len == 0 and n_points:
         raise InputError(f"{path}: the header gives a point record length of 0 bytes")
     return LasLayout((major, minor), header_size, offset, n_vlrs, fmt, rec_len, int(n_points), int(evlr_start),
-                     int(n_evlrs), compressed, size)
+                     int(n_evlrs), int(waveform) if offset < waveform <= size else 0, compressed, size)
 
 
 def check_point_data(path: Path, lay: LasLayout, las_compressed: bool) -> Optional[int]:
     """Point count against the data for an uncompressed file; for LAZ, the number of chunks in its chunk table
     (None when there is no usable table)."""
-    end = lay.evlr_start if lay.evlr_start else lay.file_size
+    end = min([e for e in (lay.evlr_start, lay.waveform_start) if e] or [lay.file_size])
     if not las_compressed:
         n_data = (end - lay.offset_to_points) // lay.record_length
         if n_data < lay.n_points:
             raise InputError(f"{path}: truncated: the header says {lay.n_points} points "
                              f"({lay.offset_to_points + lay.n_points * lay.record_length} bytes) but the file has "
                              f"{lay.file_size} bytes ({n_data} points)")
-        if n_data > lay.n_points and lay.evlr_start == 0:
+        if n_data > lay.n_points:
             raise InputError(f"{path}: the header says {lay.n_points} points but the file holds {n_data} point "
                              f"records: a damaged header (reading only the first {lay.n_points} would give half a "
                              f"scan)")
@@ -226,8 +226,8 @@ class LasSource(ScanSource):
 
     decoded = 0
 
-    def _keep_mask(self, raw) -> Optional[np.ndarray]:
-        """Points to keep (None: all), counting the skipped ones."""
+    def _keep_mask(self, raw, count: bool = True) -> Optional[np.ndarray]:
+        """Points to keep (None: all); ``count``: add the skipped ones to ``skipped``."""
         names = raw.dtype.names
         if "classification" in names:  # formats 6-10: a class byte and a flags byte (withheld = bit 2)
             cls = raw["classification"]
@@ -241,18 +241,18 @@ class LasSource(ScanSource):
             m = cls == c
             k = int(m.sum())
             if k:
-                self.skipped[f"class_{c}"] += k
+                self.skipped[f"class_{c}"] += k if count else 0
                 drop = m if drop is None else drop | m
         if self.skip_withheld and withheld is not None:
             m = withheld if drop is None else withheld & ~drop
             k = int(m.sum())
             if k:
-                self.skipped["withheld"] += k
+                self.skipped["withheld"] += k if count else 0
                 drop = withheld if drop is None else drop | withheld
         return None if drop is None else ~drop
 
-    def _filtered(self, raw):
-        keep = self._keep_mask(raw) if (self.skip_classes or self.skip_withheld) else None
+    def _filtered(self, raw, count: bool = True):
+        keep = self._keep_mask(raw, count) if (self.skip_classes or self.skip_withheld) else None
         return raw if keep is None else raw[keep]
 
     def chunks(self, chunk_size):
@@ -284,25 +284,16 @@ class LasSource(ScanSource):
         sid = raw["point_source_id"].astype(np.int64) if self.has_source_id else None
         return Chunk(xyz, sid)
 
-    def window_starts(self, n: int, rng: np.random.Generator) -> tuple[np.ndarray, int]:
-        """Starts and length of the sample windows: on WINDOW_GRID boundaries, independent of the container."""
-        n_cells = -(-self.n_points // WINDOW_GRID)
-        n_windows = min(MAX_WINDOWS, n_cells)
-        w = min(max(n // n_windows, 1), WINDOW_GRID)
-        cells = np.unique(np.linspace(0, n_cells - 1, n_windows).round().astype(np.int64))
-        if n_cells > n_windows:  # jitter each window within its share of the cells
-            share = max(n_cells // n_windows, 1)
-            cells = np.unique(np.clip(cells + rng.integers(0, share, len(cells)), 0, n_cells - 1))
-        starts = cells * WINDOW_GRID
-        return starts, w
-
     def sample(self, n, rng):
         """About ``n`` points in windows spread over the file (only the windows are decoded where seeking works)."""
         if n >= self.n_points:
             return concat_chunks(list(self.chunks(max(self.n_points, 1))))
-        starts, w = self.window_starts(n, rng)
-        if self.compressed and self.variable_chunks:
-            return self._sample_sequential(starts, w)
+        starts, w = sample_windows(self.n_points, n, rng)
+        if self.compressed and self.variable_chunks:  # seeking into variable-size chunks is not safe
+            decoded = self.decoded
+            raw = windows_from_chunks((Chunk(r, None) for r in self._records(WINDOW_GRID)), starts, w).xyz
+            self.decoded = decoded
+            return self._scaled(self._filtered(raw, count=False))
         parts = []
         try:
             with self._open() as r:
@@ -313,30 +304,13 @@ class LasSource(ScanSource):
                     if len(pts) != m:
                         raise InputError(f"{self.path}: truncated: could read only {len(pts)} of {m} requested "
                                          f"points at point {int(s)}")
-                    parts.append(self._scaled(self._filtered(pts.array)))
+                    parts.append(self._scaled(self._filtered(pts.array, count=False)))
         except InputError:
             raise
         except BaseException as exc:
             decoder_failure(exc)
             raise InputError(f"{self.path}: corrupt or truncated LAS/LAZ data ({short(exc)})") from None
         return concat_chunks(parts)
-
-    def _sample_sequential(self, starts, w):
-        """The same windows read by decoding the file from the start (LAZ with variable-size chunks cannot seek)."""
-        parts, pos = [], 0
-        want = [(int(s), int(s) + w) for s in starts]
-        for raw in self._records(WINDOW_GRID):
-            end = pos + len(raw)
-            for a, b in want:
-                lo, hi = max(a, pos), min(b, end)
-                if lo < hi:
-                    parts.append(self._scaled(self._filtered(raw[lo - pos:hi - pos])))
-            pos = end
-            if pos >= want[-1][1]:
-                break
-        self.decoded = 0
-        return concat_chunks(parts)
-
 
 def _crs_of(path: Path, vlrs) -> Optional[CrsUnits]:
     """Units from the WKT record (preferred, as LAS 1.4 says) or else the GeoTIFF keys."""

@@ -11,7 +11,7 @@ import numpy as np
 from ..errors import InputError
 from .ascii import parse_rows, split_columns
 from .records import RecordSource, float32_quantum, station_field, xyz_fields
-from .source import Chunk, ScanSource, concat_chunks
+from .source import Chunk, ScanSource
 
 KINDS = {"F": "f", "I": "i", "U": "u"}
 
@@ -165,8 +165,3 @@ class CompressedPcdSource(ScanSource):
         for s in range(0, len(self.xyz), chunk_size):
             yield Chunk(self.xyz[s:s + chunk_size], self.sid[s:s + chunk_size] if self.sid is not None else None)
 
-    def sample(self, n, rng):
-        if n >= len(self.xyz):
-            return concat_chunks(list(self.chunks(max(len(self.xyz), 1))))
-        idx = np.sort(rng.choice(len(self.xyz), n, replace=False))
-        return Chunk(self.xyz[idx], self.sid[idx] if self.sid is not None else None)

@@ -9,11 +9,7 @@ import numpy as np
 
 from ..errors import InputError
 from .ascii import STATION_NAMES
-from .source import Chunk, ScanSource, concat_chunks
-
-#: windows of a seeking sample
-SAMPLE_WINDOWS = 64
-
+from .source import Chunk, ScanSource, concat_chunks, sample_windows
 
 def station_field(names) -> Optional[str]:
     """The field that holds the station id, by its (case-insensitive) name, or None."""
@@ -83,15 +79,12 @@ class RecordSource(ScanSource):
     def _sample(self, n, rng):
         if n >= self.n_points:
             return concat_chunks(list(self.chunks(self.n_points)))
-        w = max(n // SAMPLE_WINDOWS, 1)
-        starts = np.linspace(0, self.n_points - w, SAMPLE_WINDOWS).astype(np.int64)
-        starts = np.clip(starts + rng.integers(0, max((self.n_points - w) // SAMPLE_WINDOWS, 1), SAMPLE_WINDOWS),
-                         0, self.n_points - w)
+        starts, w = sample_windows(self.n_points, n, rng)
         parts = []
         with open(self.path, "rb") as fh:
-            for s in np.sort(starts):
+            for s in starts:
                 fh.seek(self.offset + int(s) * self.dtype.itemsize)
-                parts.append(self._chunk(np.fromfile(fh, dtype=self.dtype, count=w)))
+                parts.append(self._chunk(np.fromfile(fh, dtype=self.dtype, count=int(min(w, self.n_points - s)))))
         return concat_chunks(parts)
 
 

@@ -61,15 +61,50 @@ class ScanSource:
                    int((~np.isfinite(ch.xyz).all(axis=1)).sum()))
 
     def sample(self, n: int, rng: np.random.Generator) -> Chunk:
-        """A uniform random sample of about ``n`` points, drawn in one streaming pass (reservoir by chunk)."""
+        """About ``n`` points in the windows of ``sample_windows`` (the same for every container holding the same
+        points in the same order), read in one sequential pass; sources that can seek override this."""
         if n >= self.n_points:
             return concat_chunks(list(self.chunks(max(min(self.n_points, 1_000_000), 1))))
-        p = n / self.n_points
-        parts = []
-        for ch in self.chunks(1_000_000):
-            keep = rng.random(len(ch.xyz)) < p
-            parts.append(Chunk(ch.xyz[keep], ch.source_id[keep] if ch.source_id is not None else None))
-        return concat_chunks(parts)
+        starts, w = sample_windows(self.n_points, n, rng)
+        return windows_from_chunks(self.chunks(WINDOW_GRID), starts, w)
+
+
+#: sample windows start on multiples of this many points (the LASzip default chunk size, so a LAZ file seeks to a
+#: chunk start and decodes nothing it does not keep)
+WINDOW_GRID = 50_000
+#: most windows a detection sample reads
+MAX_WINDOWS = 48
+
+
+def sample_windows(n_points: int, n: int, rng: np.random.Generator) -> tuple[np.ndarray, int]:
+    """(starts, length) of the windows of a detection sample of about ``n`` of ``n_points`` points: spread over
+    the file, each starting on a WINDOW_GRID boundary, jittered by ``rng``."""
+    n_cells = max(-(-n_points // WINDOW_GRID), 1)
+    n_windows = min(MAX_WINDOWS, n_cells)
+    w = min(max(n // n_windows, 1), WINDOW_GRID)
+    cells = np.unique(np.linspace(0, n_cells - 1, n_windows).round().astype(np.int64))
+    if n_cells > n_windows:  # jitter each window within its share of the cells
+        share = max(n_cells // n_windows, 1)
+        cells = np.unique(np.clip(cells + rng.integers(0, share, len(cells)), 0, n_cells - 1))
+    return cells * WINDOW_GRID, w
+
+
+def windows_from_chunks(chunks, starts, w) -> Chunk:
+    """The points of the windows [start, start + w) from a sequential stream of chunks."""
+    parts, pos = [], 0
+    want = [(int(s), int(s) + w) for s in starts]
+    last = want[-1][1] if want else 0
+    for ch in chunks:
+        end = pos + len(ch.xyz)
+        for a, b in want:
+            lo, hi = max(a, pos), min(b, end)
+            if lo < hi:
+                sid = ch.source_id[lo - pos:hi - pos] if ch.source_id is not None else None
+                parts.append(Chunk(ch.xyz[lo - pos:hi - pos], sid))
+        pos = end
+        if pos >= last:
+            break
+    return concat_chunks(parts)
 
 
 def concat_chunks(parts) -> Chunk:

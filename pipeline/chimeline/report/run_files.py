@@ -50,7 +50,11 @@ def profile_summary(res) -> dict:
         "software": {"name": "chimeline", "version": __version__},
         "tank": {"tag": res.config.tank.tag, "survey_date": res.config.tank.survey_date},
         "input": {"path": str(res.scan_path), "sha256": res.input_sha256, "n_points_read": res.n_points_read,
-                  "units": fr.units, "units_source": fr.units_source},
+                  "units": fr.units, "units_source": fr.units_source, "units_horizontal": fr.units_horizontal,
+                  "units_vertical": fr.units, "paths": [str(p) for p in res.scan_paths or (res.scan_path,)],
+                  "sha256_files": list(res.input_sha256_files),
+                  "decoded_fraction": res.counts.get("decoded_fraction"),
+                  "skipped_points": res.counts.get("skipped", {})},
         "config": {"source": res.config_source, "sha256": config_hash(res.resolved), "seed": res.config.seed},
         "frame": {"origin": fr.origin.tolist(), "origin_units": fr.units, "up_axis": fr.up_axis,
                   "azimuth": f"degrees {'clockwise' if fr.azimuth_direction == 'cw' else 'counter-clockwise'} from "
