@@ -168,7 +168,7 @@ class NpySource(ScanSource):
         self.usecols = used
         self.has_source_id = self.station_col is not None
         self.n_points = int(self.arr.shape[0])
-        if self.arr.dtype == np.float32:
+        if self.arr.dtype.kind == "f" and self.arr.dtype.itemsize == 4:
             self.storage = "float32"
 
     def chunks(self, chunk_size):

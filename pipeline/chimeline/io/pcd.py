@@ -157,7 +157,7 @@ class CompressedPcdSource(ScanSource):
         self.skipped = {"no_return": int((~ok).sum())}
         self.xyz, self.sid = xyz[ok], (sid[ok] if sid is not None else None)
         self.has_source_id = station is not None
-        if any(dtype[f].base == np.float32 for f in fields):
+        if any(dtype[f].base.kind == "f" and dtype[f].base.itemsize == 4 for f in fields):
             self.storage = "float32"
             self.coordinate_quantum = float32_quantum(self.xyz)
 

@@ -45,7 +45,7 @@ class RecordSource(ScanSource):
                              f"has {size} bytes")
         if self.n_points == 0:
             raise InputError(f"{path}: the scan holds no points")
-        if any(self.dtype[f] == np.float32 for f in self.fields):
+        if any(self.dtype[f].kind == "f" and self.dtype[f].itemsize == 4 for f in self.fields):
             self.storage = "float32"
 
     def _chunk(self, rec) -> Chunk:
