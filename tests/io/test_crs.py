@@ -79,13 +79,12 @@ def test_geotiff_keyed_las_in_feet_is_read_in_feet(simulate, tmp_path):
     assert res.shell.radius / 0.3048 == pytest.approx(truth["tank"]["outer_radius"], abs=0.003 / 0.3048)
 
 
-def test_compound_crs_metres_in_plan_and_us_feet_in_height(simulate, tmp_path):
+def test_compound_crs_metres_in_plan_and_us_feet_in_height(small_reference, tmp_path):
     """The same scan with heights in US survey feet under a compound CRS gives the metre scan's profile."""
-    scan, _ = simulate("small_tank.yaml", 91)
+    scan, a = small_reference
     path = formats.las_like(scan, tmp_path / "compound.las", scale_z=1 / US_SURVEY_FOOT,
                             vlrs=[_wkt_vlr("EPSG:32618+6360")])
     cfg, resolved, s = load_config()
-    a = process_scan(scan, cfg, resolved, s)
     b = process_scan(path, cfg, resolved, s)
     assert (b.frame.units_horizontal, b.frame.units) == ("m", "us_ft")
     assert b.shell.radius == pytest.approx(a.shell.radius, abs=2e-4)

@@ -19,10 +19,8 @@ SCALE = 1e-4  # m, the simulator's LAS scale
 
 
 @pytest.fixture(scope="module")
-def reference(simulate, tmp_path_factory):
-    scan, truth = simulate("small_tank.yaml", 91)
-    cfg, resolved, s = load_config()
-    res = process_scan(scan, cfg, resolved, s)
+def reference(small_reference, tmp_path_factory):
+    scan, res = small_reference
     xyz, st = formats.scan_points(scan)
     return scan, res, xyz, st, tmp_path_factory.mktemp("formats")
 

@@ -124,7 +124,7 @@ class TextSource(ScanSource):
 
     def chunks(self, chunk_size):
         with open(self.path, "r", encoding="utf-8", errors="replace") as fh:
-            lineno = 1 + self.skip
+            lineno, seen = 1 + self.skip, 0
             for _ in range(self.skip):
                 next(fh)
             while True:
@@ -133,8 +133,10 @@ class TextSource(ScanSource):
                     break
                 arr = parse_rows(lines, lineno, self.delim, self.usecols, self.path)
                 lineno += len(lines)
+                seen += len(arr)
                 if len(arr):
                     yield split_columns(arr, self.has_source_id)
+        self.n_points = max(seen, 1)  # exact once the whole file was read (an upper bound before)
 
 
 def split_columns(arr: np.ndarray, has_station: bool) -> Chunk:

@@ -127,12 +127,14 @@ class CopcSource(LasSource):
             reader.source.close()
 
     def _band(self, raw, up_index, up_range, stride):
-        raw = self._filtered(raw)
+        if self._filtering:
+            self._count_skipped(raw)
         q = self.scale[up_index]
         u = raw["XYZ"[up_index]]
         m = (u >= np.floor((up_range[0] - self.offset[up_index]) / q)) & (
             u <= np.ceil((up_range[1] - self.offset[up_index]) / q))
-        return self._scaled(raw[m]), self._scaled(raw[::stride]), 0
+        return (self._scaled(self._filtered(raw[m], count=False)),
+                self._scaled(self._filtered(raw[::stride], count=False)), 0)
 
 
 def is_copc(path: Path) -> bool:

@@ -2,7 +2,8 @@
 
 The octree: the root cube encloses the points; each level takes, in every cell of its grid, up to
 ``node_points`` points not taken by a coarser level (in a seeded random order), so every level is a spatially
-even subsample and the finest levels hold the rest. Each node is one variable-size LAZ chunk (lazrs), the
+even subsample and the finest levels hold the rest. The default, 16 384, is what a node of 128 x 128 x 128 cells
+holds on a surface (one point per cell), the usual node size of COPC writers (from memory). Each node is one variable-size LAZ chunk (lazrs), the
 hierarchy one EVLR page; the COPC info VLR comes first, as the format requires. Points are held in memory.
 """
 from __future__ import annotations
@@ -48,7 +49,7 @@ def octree_nodes(ixyz: np.ndarray, mins, halfsize: float, node_points: int, rng:
     return nodes
 
 
-def write_copc(path, points, header, node_points: int = 20_000, seed: int = 0) -> Path:
+def write_copc(path, points, header, node_points: int = 16_384, seed: int = 0) -> Path:
     """Write ``points`` (a laspy point record of format 6, 7 or 8) as a COPC file with ``header``'s scales,
     offsets and VLRs (a laspy LasHeader; its COPC and LASzip records are replaced)."""
     import laspy
@@ -116,7 +117,7 @@ def write_copc(path, points, header, node_points: int = 20_000, seed: int = 0) -
     return path
 
 
-def las_to_copc(src, dst, node_points: int = 20_000, seed: int = 0) -> Path:
+def las_to_copc(src, dst, node_points: int = 16_384, seed: int = 0) -> Path:
     """Convert a LAS/LAZ file (point format 6-8) to COPC, the same points in octree order."""
     import laspy
 

@@ -224,63 +224,75 @@ class LasSource(ScanSource):
             raise InputError(f"{self.path}: corrupt or truncated LAS/LAZ data after {done} of "
                              f"{self.n_points} points ({short(exc)})") from None
 
-    decoded = 0
-
-    def _keep_mask(self, raw, count: bool = True) -> Optional[np.ndarray]:
-        """Points to keep (None: all); ``count``: add the skipped ones to ``skipped``."""
+    @staticmethod
+    def _class_flags(raw):
+        """(class (n,) uint8, withheld (n,) bool or None) of raw records of any point format."""
         names = raw.dtype.names
         if "classification" in names:  # formats 6-10: a class byte and a flags byte (withheld = bit 2)
-            cls = raw["classification"]
-            withheld = (raw["classification_flags"] & 0x04) != 0 if "classification_flags" in names else None
-        else:  # formats 0-5: class in bits 0-4, withheld in bit 7
-            rc = raw["raw_classification"]
-            cls = rc & 0x1F
-            withheld = (rc & 0x80) != 0
-        drop = None
-        for c in self.skip_classes:
-            m = cls == c
-            k = int(m.sum())
-            if k:
-                self.skipped[f"class_{c}"] += k if count else 0
-                drop = m if drop is None else drop | m
+            flags = raw["classification_flags"] if "classification_flags" in names else None
+            return raw["classification"], ((flags & 0x04) != 0) if flags is not None else None
+        rc = raw["raw_classification"]  # formats 0-5: class in bits 0-4, withheld in bit 7
+        return rc & 0x1F, (rc & 0x80) != 0
+
+    @property
+    def _filtering(self) -> bool:
+        return bool(self.skip_classes or self.skip_withheld)
+
+    def _drop_mask(self, raw) -> Optional[np.ndarray]:
+        """Points to drop (None: none)."""
+        cls, withheld = self._class_flags(raw)
+        lut = np.zeros(256, bool)
+        lut[list(self.skip_classes)] = True
+        drop = lut[cls]
         if self.skip_withheld and withheld is not None:
-            m = withheld if drop is None else withheld & ~drop
-            k = int(m.sum())
-            if k:
-                self.skipped["withheld"] += k if count else 0
-                drop = withheld if drop is None else drop | withheld
-        return None if drop is None else ~drop
+            drop |= withheld
+        return drop if drop.any() else None
+
+    def _count_skipped(self, raw) -> None:
+        """Add the points of ``raw`` that are dropped, by reason (a point of a skipped class counts only there)."""
+        cls, withheld = self._class_flags(raw)
+        per_class = np.bincount(cls, minlength=256)
+        for c in self.skip_classes:
+            self.skipped[f"class_{c}"] += int(per_class[c])
+        if self.skip_withheld and withheld is not None:
+            lut = np.zeros(256, bool)
+            lut[list(self.skip_classes)] = True
+            self.skipped["withheld"] += int(np.count_nonzero(withheld & ~lut[cls]))
 
     def _filtered(self, raw, count: bool = True):
-        keep = self._keep_mask(raw, count) if (self.skip_classes or self.skip_withheld) else None
-        return raw if keep is None else raw[keep]
+        if not self._filtering:
+            return raw
+        if count:
+            self._count_skipped(raw)
+        drop = self._drop_mask(raw)
+        return raw if drop is None else raw[~drop]
 
     def chunks(self, chunk_size):
         for raw in self._records(chunk_size):
             yield self._scaled(self._filtered(raw))
 
     def stream(self, chunk_size, up_index, up_range, stride, bounds=None):
-        """Cut on the raw integer up coordinate first, so only the band is scaled to float."""
+        """Cut on the raw integer up coordinate first, so only the band is filtered and scaled to float."""
         dims = "XYZ"
         lo_i = np.floor((up_range[0] - self.offset[up_index]) / self.scale[up_index])
         hi_i = np.ceil((up_range[1] - self.offset[up_index]) / self.scale[up_index])
         for raw in self._records(chunk_size):
-            n = len(raw)
-            raw = self._filtered(raw)
+            if self._filtering:
+                self._count_skipped(raw)
             u = raw[dims[up_index]]
-            m = (u >= lo_i) & (u <= hi_i)
-            yield n, self._scaled(raw[m]), self._scaled(raw[::stride]), 0
+            band = raw[(u >= lo_i) & (u <= hi_i)]
+            yield (len(raw), self._scaled(self._filtered(band, count=False)),
+                   self._scaled(self._filtered(raw[::stride], count=False)), 0)
 
     def _scaled(self, raw):
         xyz = np.empty((len(raw), 3))
         for i, d in enumerate("XYZ"):
             xyz[:, i] = raw[d] * self.scale[i] + self.offset[i]
         lo, hi, sc = self.bounds
-        if len(xyz):
+        if len(xyz) and ((xyz.min(axis=0) < lo - 2 * sc).any() or (xyz.max(axis=0) > hi + 2 * sc).any()):
             out = ((xyz < lo - 2 * sc) | (xyz > hi + 2 * sc)).any(axis=1)
-            if out.any():
-                raise InputError(f"{self.path}: corrupt point data: {int(out.sum())} points lie outside the header's "
-                                 f"bounding box (a damaged LAS/LAZ file, or a header that does not match its points)")
+            raise InputError(f"{self.path}: corrupt point data: {int(out.sum())} points lie outside the header's "
+                             f"bounding box (a damaged LAS/LAZ file, or a header that does not match its points)")
         sid = raw["point_source_id"].astype(np.int64) if self.has_source_id else None
         return Chunk(xyz, sid)
 

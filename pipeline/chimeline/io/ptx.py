@@ -74,6 +74,13 @@ class PtxSource(ScanSource):
                 lineno += n
 
     def chunks(self, chunk_size):
+        seen = 0
+        for ch in self._chunks(chunk_size):
+            seen += len(ch.xyz)
+            yield ch
+        self.n_points = max(seen, 1)  # exact once the whole file was read (an upper bound before)
+
+    def _chunks(self, chunk_size):
         for station, m, fh, n, lineno in self._blocks():
             left = n
             while left > 0:

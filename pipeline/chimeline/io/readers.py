@@ -9,6 +9,7 @@ from __future__ import annotations
 import glob
 import logging
 import re
+import struct
 from pathlib import Path
 from typing import Optional
 
@@ -65,8 +66,8 @@ def open_scan(path, cfg: Optional[InputConfig] = None) -> ScanSource:
         if ext == ".ptx":
             return PtxSource(path)
         return TextSource(path, cfg.columns)
-    except (OSError, UnicodeError) as exc:
-        raise InputError(f"{path}: cannot read the scan ({short(exc)})") from None
+    except (OSError, UnicodeError, ValueError, IndexError, KeyError, struct.error) as exc:
+        raise InputError(f"{path}: cannot read the scan as {ext} ({short(exc)})") from None
 
 
 def expand_inputs(items) -> list[Path]:
