@@ -32,12 +32,14 @@ def child(cmd):
     err = p.stderr.read().decode(errors="replace")
     if status != 0:
         raise SystemExit(f"failed: {' '.join(map(str, cmd))}\n{err}")
-    return wall, ru.ru_maxrss / 1024.0  # MiB (Linux reports KiB)
+    return wall, ru.ru_maxrss / 1024.0, ru.ru_utime + ru.ru_stime  # s, MiB (Linux reports KiB), CPU s
 
 
 def median(runs):
+    """(median wall s, largest peak RSS MiB, median CPU s): CPU time is less sensitive to a shared machine."""
     ts = sorted(r[0] for r in runs)
-    return ts[len(ts) // 2], max(r[1] for r in runs)
+    cpu = sorted(r[2] for r in runs)
+    return ts[len(ts) // 2], max(r[1] for r in runs), cpu[len(cpu) // 2]
 
 
 def _count(path):
@@ -98,20 +100,22 @@ def main():
         for n in args.sizes:
             scans = make_scan(py, args.dir, fmt, n)
             read = "import laspy\n" + "".join(f"laspy.read({str(p)!r})\n" for p in scans)
-            ref = [child([py, "-c", read]) for _ in range(args.repeat)]
             out = args.dir / f"{scans[0].stem}_{fmt}_run"
-            run = [child([py, "-m", "chimeline.cli", "-q", "run", *map(str, scans), "--out", str(out),
-                          "--set", "output.plots=false"]) for _ in range(args.repeat)]
-            ref_t, ref_rss = median(ref)
-            run_t, run_rss = median(run)
+            ref, run = [], []
+            for _ in range(args.repeat):  # interleaved, so a drifting machine load hits both alike
+                ref.append(child([py, "-c", read]))
+                run.append(child([py, "-m", "chimeline.cli", "-q", "run", *map(str, scans), "--out", str(out),
+                                  "--set", "output.plots=false"]))
+            ref_t, ref_rss, ref_cpu = median(ref)
+            run_t, run_rss, run_cpu = median(run)
             import json
 
             decoded = json.loads((out / "profile.json").read_text())["input"].get("decoded_fraction")
             npts = sum(_count(p) for p in scans)
-            rows.append((fmt, npts, ref_t, ref_rss, run_t, run_rss, run_t / ref_t, decoded))
-            print(f"{fmt:5s} {npts / 1e6:6.1f} M pts  laspy.read {ref_t:6.2f} s {ref_rss:7.0f} MiB   "
-                  f"chimeline run {run_t:6.2f} s {run_rss:7.0f} MiB   ratio {run_t / ref_t:4.2f}   "
-                  f"decoded {decoded}", flush=True)
+            rows.append((fmt, npts, ref_t, ref_rss, run_t, run_rss, run_t / ref_t, decoded, ref_cpu, run_cpu))
+            print(f"{fmt:5s} {npts / 1e6:6.1f} M pts  laspy.read {ref_t:6.2f} s (cpu {ref_cpu:5.2f}) {ref_rss:6.0f} MiB"
+                  f"   chimeline run {run_t:6.2f} s (cpu {run_cpu:5.2f}) {run_rss:6.0f} MiB   ratio "
+                  f"{run_t / ref_t:5.2f}   decoded {decoded}   load {os.getloadavg()[0]:.1f}", flush=True)
     return rows
 
 

@@ -191,3 +191,35 @@ class NpySource(ScanSource):
             big = np.abs(fin).max(axis=0) if len(fin) else np.zeros(3)
             self.coordinate_quantum = np.spacing(big.astype(np.float32)).astype(np.float64)
         return out
+
+
+class RowsSource(ScanSource):
+    """Whitespace-separated rows after a header of ``skip`` lines (ASCII PLY and PCD): ``n`` rows, columns
+    ``cols`` (x, y, z) and an optional station column; NaN points dropped as missing returns if asked."""
+
+    def __init__(self, path: Path, skip: int, n: int, cols, station_col=None, drop_nonfinite: bool = False):
+        self.path, self.skip, self.n_points = path, skip, n
+        self.usecols = list(cols) + ([station_col] if station_col is not None else [])
+        self.has_source_id = station_col is not None
+        self.drop_nonfinite = drop_nonfinite
+        self.skipped = {"no_return": 0} if drop_nonfinite else {}
+        if n == 0:
+            raise InputError(f"{path}: the scan holds no points")
+
+    def chunks(self, chunk_size):
+        with open(self.path, "r", encoding="ascii", errors="replace") as fh:
+            for _ in range(self.skip):
+                next(fh)
+            left, lineno = self.n_points, self.skip + 1
+            while left > 0:
+                lines = list(itertools.islice(fh, min(chunk_size, left)))
+                if not lines:
+                    raise InputError(f"{self.path}: truncated: {self.n_points - left} of {self.n_points} points")
+                ch = split_columns(parse_rows(lines, lineno, None, self.usecols, self.path), self.has_source_id)
+                left -= len(lines)
+                lineno += len(lines)
+                if self.drop_nonfinite:
+                    ok = np.isfinite(ch.xyz).all(axis=1)
+                    self.skipped["no_return"] += int((~ok).sum())
+                    ch = Chunk(ch.xyz[ok], ch.source_id[ok] if ch.source_id is not None else None)
+                yield ch

@@ -3,13 +3,12 @@ block). Field names and header keywords in any case (``FIELDS X Y Z``). NaN poin
 returns: skipped and counted as ``no_return``."""
 from __future__ import annotations
 
-import itertools
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import InputError
-from .ascii import parse_rows, split_columns
+from .ascii import RowsSource
 from .records import RecordSource, float32_quantum, station_field, xyz_fields
 from .source import Chunk, ScanSource
 
@@ -59,35 +58,11 @@ def open_pcd(path: Path) -> ScanSource:
         for nm, c in zip(names, counts):
             cols[nm] = col
             col += int(c)
-        return AsciiPcdSource(path, n_head, npts, [cols[f] for f in fields], cols[station] if station else None)
+        return RowsSource(path, n_head, npts, [cols[f] for f in fields], cols[station] if station else None,
+                          drop_nonfinite=True)
     if mode == "binary_compressed":
         return CompressedPcdSource(path, offset, dtype, npts, fields, station)
     raise InputError(f"{path}: unknown PCD DATA type {mode!r} (ascii, binary or binary_compressed)")
-
-
-class AsciiPcdSource(ScanSource):
-    def __init__(self, path, skip, n, cols, station_col):
-        self.path, self.skip, self.n_points = path, skip, n
-        self.usecols = cols + ([station_col] if station_col is not None else [])
-        self.has_source_id = station_col is not None
-        self.skipped = {"no_return": 0}
-        if n == 0:
-            raise InputError(f"{path}: the scan holds no points")
-
-    def chunks(self, chunk_size):
-        with open(self.path, "r", encoding="ascii", errors="replace") as fh:
-            for _ in range(self.skip):
-                next(fh)
-            lineno = self.skip + 1
-            while True:
-                lines = list(itertools.islice(fh, chunk_size))
-                if not lines:
-                    break
-                ch = split_columns(parse_rows(lines, lineno, None, self.usecols, self.path), self.has_source_id)
-                lineno += len(lines)
-                ok = np.isfinite(ch.xyz).all(axis=1)
-                self.skipped["no_return"] += int((~ok).sum())
-                yield Chunk(ch.xyz[ok], ch.source_id[ok] if ch.source_id is not None else None)
 
 
 def lzf_decompress(data: bytes, size: int) -> bytes:

@@ -3,13 +3,12 @@
 properties (faces come after vertices in point clouds)."""
 from __future__ import annotations
 
-import itertools
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import InputError
-from .ascii import parse_rows, split_columns
+from .ascii import RowsSource
 from .records import RecordSource, station_field, xyz_fields
 from .source import ScanSource
 
@@ -75,32 +74,7 @@ def open_ply(path: Path) -> ScanSource:
     fields = xyz_fields(pnames, path)
     station = station_field(pnames)
     if fmt == "ascii":
-        return AsciiPlySource(path, n_head + skip_lines, n, [pnames.index(f) for f in fields],
+        return RowsSource(path, n_head + skip_lines, n, [pnames.index(f) for f in fields],
                               pnames.index(station) if station else None)
     dtype = np.dtype([(p, order + TYPES[t]) for t, p in props])
     return RecordSource(path, offset + skip_bytes, dtype, n, station)
-
-
-class AsciiPlySource(ScanSource):
-    """ASCII PLY vertices, streamed as text rows."""
-
-    def __init__(self, path, skip_lines, n, cols, station_col):
-        self.path, self.skip, self.n_points = path, skip_lines, n
-        self.usecols = cols + ([station_col] if station_col is not None else [])
-        self.has_source_id = station_col is not None
-        if n == 0:
-            raise InputError(f"{path}: the scan holds no points")
-
-    def chunks(self, chunk_size):
-        with open(self.path, "r", encoding="ascii", errors="replace") as fh:
-            for _ in range(self.skip):
-                next(fh)
-            left, lineno = self.n_points, self.skip + 1
-            while left > 0:
-                lines = list(itertools.islice(fh, min(chunk_size, left)))
-                if not lines:
-                    raise InputError(f"{self.path}: truncated: {self.n_points - left} of {self.n_points} vertices")
-                arr = parse_rows(lines, lineno, None, self.usecols, self.path)
-                left -= len(lines)
-                lineno += len(lines)
-                yield split_columns(arr, self.has_source_id)
