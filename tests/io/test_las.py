@@ -77,8 +77,10 @@ def test_decoder_panics_become_one_input_error(small_las, tmp_path, monkeypatch)
         src.sample(1000, np.random.default_rng(0))
 
 
-def test_ctrl_c_is_not_swallowed(small_las, monkeypatch):
-    src = open_scan(small_las)
+def test_ctrl_c_is_not_swallowed(small_las, tmp_path, monkeypatch):
+    laz = tmp_path / "c.laz"
+    laspy.read(small_las).write(laz)
+    src = open_scan(laz)
 
     def stop(self, n):
         raise KeyboardInterrupt

@@ -127,14 +127,16 @@ class CopcSource(LasSource):
             reader.source.close()
 
     def _band(self, raw, up_index, up_range, stride):
-        if self._filtering:
-            self._count_skipped(raw)
         q = self.scale[up_index]
         u = raw["XYZ"[up_index]]
         m = (u >= np.floor((up_range[0] - self.offset[up_index]) / q)) & (
             u <= np.ceil((up_range[1] - self.offset[up_index]) / q))
-        return (self._scaled(self._filtered(raw[m], count=False)),
-                self._scaled(self._filtered(raw[::stride], count=False)), 0)
+        drop = self._drop(raw)
+        if drop is not None:
+            m &= ~drop
+        sd = drop[::stride] if drop is not None else None
+        return (self._scaled(raw, np.nonzero(m)[0]),
+                self._scaled(raw[::stride], np.nonzero(~sd)[0] if sd is not None else None), 0)
 
 
 def is_copc(path: Path) -> bool:
@@ -150,4 +152,3 @@ def is_copc(path: Path) -> bool:
             return len(vlr) == 18 and vlr[:16].rstrip(b"\x00") == b"copc" and struct.unpack_from("<H", vlr, 16)[0] == 1
     except OSError:
         return False
-

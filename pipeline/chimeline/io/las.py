@@ -141,6 +141,7 @@ class LasSource(ScanSource):
                 dims = set(h.point_format.dimension_names)
                 self.has_source_id = "point_source_id" in dims
                 self.point_format_id = int(h.point_format.id)
+                self._dtype = h.point_format.dtype()
                 self.offset_hint = np.asarray(h.offsets, dtype=float)
                 self.compressed = path.suffix.lower() == ".laz" or h.are_points_compressed
                 self.crs = _crs_of(path, list(h.vlrs) + list(getattr(r, "evlrs", None) or []))
@@ -182,6 +183,8 @@ class LasSource(ScanSource):
             self.skipped[f"class_{c}"] = 0
         if self.skip_withheld:
             self.skipped["withheld"] = 0
+        self._skip_lut = np.zeros(256, bool)
+        self._skip_lut[[c for c in self.skip_classes if 0 <= c < 256]] = True
 
     @staticmethod
     def _check_laz_backend():
@@ -203,9 +206,26 @@ class LasSource(ScanSource):
             want |= sel.CLASSIFICATION | sel.FLAGS
         return laspy.open(self.path, decompression_selection=want)
 
+    def _memmap(self):
+        """The records of an uncompressed file as a read-only memory map: chunks are views, only what is kept is
+        copied (the header's sizes were checked against the file)."""
+        dt = self._dtype
+        if self.layout.record_length < dt.itemsize:
+            return None
+        dt = np.dtype({"names": list(dt.names), "formats": [dt.fields[n][0] for n in dt.names],
+                       "offsets": [dt.fields[n][1] for n in dt.names], "itemsize": self.layout.record_length})
+        return np.memmap(self.path, dtype=dt, mode="r", offset=self.layout.offset_to_points, shape=(self.n_points,))
+
     def _records(self, chunk_size):
         """Raw point records (structured arrays, integer coordinates) in chunks; read errors become InputError."""
         done = 0
+        mm = None if self.compressed else self._memmap()
+        if mm is not None:
+            for s in range(0, self.n_points, chunk_size):
+                part = mm[s:s + chunk_size]
+                self.decoded += len(part)
+                yield part
+            return
         try:
             with self._open() as r:
                 while done < self.n_points:
@@ -238,33 +258,29 @@ class LasSource(ScanSource):
     def _filtering(self) -> bool:
         return bool(self.skip_classes or self.skip_withheld)
 
-    def _drop_mask(self, raw) -> Optional[np.ndarray]:
-        """Points to drop (None: none)."""
+    def _drop(self, raw, count: bool = True) -> Optional[np.ndarray]:
+        """Points of ``raw`` to drop (None: none); ``count`` adds them to ``skipped`` by reason (a point of a
+        skipped class counts there only)."""
+        if not self._filtering:
+            return None
         cls, withheld = self._class_flags(raw)
-        lut = np.zeros(256, bool)
-        lut[list(self.skip_classes)] = True
-        drop = lut[cls]
+        drop = self._skip_lut[cls]
+        k = int(np.count_nonzero(drop))
+        if k and count:
+            per_class = np.bincount(cls[drop], minlength=256)
+            for c in self.skip_classes:
+                self.skipped[f"class_{c}"] += int(per_class[c])
         if self.skip_withheld and withheld is not None:
-            drop |= withheld
-        return drop if drop.any() else None
-
-    def _count_skipped(self, raw) -> None:
-        """Add the points of ``raw`` that are dropped, by reason (a point of a skipped class counts only there)."""
-        cls, withheld = self._class_flags(raw)
-        per_class = np.bincount(cls, minlength=256)
-        for c in self.skip_classes:
-            self.skipped[f"class_{c}"] += int(per_class[c])
-        if self.skip_withheld and withheld is not None:
-            lut = np.zeros(256, bool)
-            lut[list(self.skip_classes)] = True
-            self.skipped["withheld"] += int(np.count_nonzero(withheld & ~lut[cls]))
+            w = int(np.count_nonzero(withheld & ~drop)) if count or not k else 0
+            if count:
+                self.skipped["withheld"] += w
+            if w or k:
+                drop |= withheld
+                k = k or w
+        return drop if k else None
 
     def _filtered(self, raw, count: bool = True):
-        if not self._filtering:
-            return raw
-        if count:
-            self._count_skipped(raw)
-        drop = self._drop_mask(raw)
+        drop = self._drop(raw, count)
         return raw if drop is None else raw[~drop]
 
     def chunks(self, chunk_size):
@@ -272,28 +288,40 @@ class LasSource(ScanSource):
             yield self._scaled(self._filtered(raw))
 
     def stream(self, chunk_size, up_index, up_range, stride, bounds=None):
-        """Cut on the raw integer up coordinate first, so only the band is filtered and scaled to float."""
+        """Cut on the raw integer up coordinate first, so only the band's fields are copied and scaled to float."""
         dims = "XYZ"
         lo_i = np.floor((up_range[0] - self.offset[up_index]) / self.scale[up_index])
         hi_i = np.ceil((up_range[1] - self.offset[up_index]) / self.scale[up_index])
         for raw in self._records(chunk_size):
-            if self._filtering:
-                self._count_skipped(raw)
             u = raw[dims[up_index]]
-            band = raw[(u >= lo_i) & (u <= hi_i)]
-            yield (len(raw), self._scaled(self._filtered(band, count=False)),
-                   self._scaled(self._filtered(raw[::stride], count=False)), 0)
+            m = (u >= lo_i) & (u <= hi_i)
+            drop = self._drop(raw)
+            if drop is not None:
+                m &= ~drop
+            strided = raw[::stride]
+            sd = drop[::stride] if drop is not None else None
+            yield (len(raw), self._scaled(raw, np.nonzero(m)[0]),
+                   self._scaled(strided, np.nonzero(~sd)[0] if sd is not None else None), 0)
 
-    def _scaled(self, raw):
-        xyz = np.empty((len(raw), 3))
-        for i, d in enumerate("XYZ"):
-            xyz[:, i] = raw[d] * self.scale[i] + self.offset[i]
+    def _scaled(self, raw, index=None):
+        """Float coordinates (and station ids) of ``raw``, or of ``raw[index]``; integer coordinates outside the
+        header's bounding box (by more than two steps) are a damaged file."""
+        k = len(raw) if index is None else len(index)
+        xyz = np.empty((k, 3))
         lo, hi, sc = self.bounds
-        if len(xyz) and ((xyz.min(axis=0) < lo - 2 * sc).any() or (xyz.max(axis=0) > hi + 2 * sc).any()):
-            out = ((xyz < lo - 2 * sc) | (xyz > hi + 2 * sc)).any(axis=1)
-            raise InputError(f"{self.path}: corrupt point data: {int(out.sum())} points lie outside the header's "
-                             f"bounding box (a damaged LAS/LAZ file, or a header that does not match its points)")
-        sid = raw["point_source_id"].astype(np.int64) if self.has_source_id else None
+        for i, d in enumerate("XYZ"):
+            v = raw[d] if index is None else raw[d][index]
+            if k and (v.min() * sc[i] + self.offset[i] < lo[i] - 2 * sc[i] or
+                      v.max() * sc[i] + self.offset[i] > hi[i] + 2 * sc[i]):
+                f = v * sc[i] + self.offset[i]
+                bad = int(((f < lo[i] - 2 * sc[i]) | (f > hi[i] + 2 * sc[i])).sum())
+                raise InputError(f"{self.path}: corrupt point data: {bad} points lie outside the header's bounding "
+                                 f"box (a damaged LAS/LAZ file, or a header that does not match its points)")
+            np.multiply(v, sc[i], out=xyz[:, i])
+            xyz[:, i] += self.offset[i]
+        sid = None
+        if self.has_source_id:
+            sid = (raw["point_source_id"] if index is None else raw["point_source_id"][index]).astype(np.int64)
         return Chunk(xyz, sid)
 
     def sample(self, n, rng):
