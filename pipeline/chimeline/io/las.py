@@ -11,6 +11,7 @@ windows whatever the container, so a LAS file and its LAZ copy give the same sam
 from __future__ import annotations
 
 import logging
+import mmap
 import struct
 from dataclasses import dataclass
 from pathlib import Path
@@ -206,25 +207,34 @@ class LasSource(ScanSource):
             want |= sel.CLASSIFICATION | sel.FLAGS
         return laspy.open(self.path, decompression_selection=want)
 
-    def _memmap(self):
-        """The records of an uncompressed file as a read-only memory map: chunks are views, only what is kept is
-        copied (the header's sizes were checked against the file)."""
+    def _record_dtype(self):
+        """The records' numpy dtype with the file's record length (None if the header's length is too short)."""
         dt = self._dtype
         if self.layout.record_length < dt.itemsize:
             return None
-        dt = np.dtype({"names": list(dt.names), "formats": [dt.fields[n][0] for n in dt.names],
-                       "offsets": [dt.fields[n][1] for n in dt.names], "itemsize": self.layout.record_length})
-        return np.memmap(self.path, dtype=dt, mode="r", offset=self.layout.offset_to_points, shape=(self.n_points,))
+        return np.dtype({"names": list(dt.names), "formats": [dt.fields[n][0] for n in dt.names],
+                         "offsets": [dt.fields[n][1] for n in dt.names], "itemsize": self.layout.record_length})
 
     def _records(self, chunk_size):
         """Raw point records (structured arrays, integer coordinates) in chunks; read errors become InputError."""
         done = 0
-        mm = None if self.compressed else self._memmap()
-        if mm is not None:
-            for s in range(0, self.n_points, chunk_size):
-                part = mm[s:s + chunk_size]
-                self.decoded += len(part)
-                yield part
+        dt = None if self.compressed else self._record_dtype()
+        if dt is not None:  # uncompressed: memory-mapped (the sizes were checked); chunks are views
+            off = self.layout.offset_to_points
+            mm = np.memmap(self.path, dtype=dt, mode="r", offset=off, shape=(self.n_points,))
+            base = getattr(mm, "_mmap", None)
+            lead = off % mmap.ALLOCATIONGRANULARITY  # numpy maps from the granularity boundary below the offset
+            try:
+                for s in range(0, self.n_points, chunk_size):
+                    part = mm[s:s + chunk_size]
+                    self.decoded += len(part)
+                    yield part
+                    if base is not None and hasattr(base, "madvise"):  # drop the pages read: RSS stays flat
+                        a = lead + s * dt.itemsize
+                        a -= a % mmap.PAGESIZE
+                        base.madvise(mmap.MADV_DONTNEED, a, min(lead + (s + len(part)) * dt.itemsize, len(base)) - a)
+            finally:
+                del mm
             return
         try:
             with self._open() as r:
