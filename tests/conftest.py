@@ -35,3 +35,15 @@ def simulate(tmp_path_factory):
 @pytest.fixture(scope="module")
 def small_scan(simulate):
     return simulate("small_tank.yaml", 77)
+
+
+@pytest.fixture(scope="session")
+def small_reference(simulate):
+    """(scan path, RunResult) of small_tank.yaml seed 91 with the default config: the reference of the reader
+    round trips, computed once per session."""
+    from chimeline.config import load_config
+    from chimeline.workflows.run import process_scan
+
+    scan, _ = simulate("small_tank.yaml", 91)
+    cfg, resolved, s = load_config()
+    return scan, process_scan(scan, cfg, resolved, s)

@@ -265,13 +265,45 @@ def default_mapping() -> dict:
 
 
 @dataclass(frozen=True)
+class ColumnsConfig:
+    """0-based column numbers of an ASCII or .npy scan (``input.columns``)."""
+
+    x: int = rng_field(0, 0, 10_000)
+    y: int = rng_field(1, 0, 10_000)
+    z: int = rng_field(2, 0, 10_000)
+    station: Optional[int] = None  # column of the station (scan position) id; None: no station column
+
+    def _check(self, prefix, source):
+        used = [self.x, self.y, self.z] + ([self.station] if self.station is not None else [])
+        if self.station is not None and not (isinstance(self.station, int) and 0 <= self.station <= 10_000):
+            raise ConfigError(f"{source}: '{_join(prefix, 'station')}' must be an int in [0, 10000], got "
+                              f"{self.station!r}")
+        if len(set(used)) != len(used):
+            raise ConfigError(f"{source}: '{prefix}' maps two names to one column: {used}")
+
+
+LENGTH_UNIT_CHOICES = ("auto", "m", "ft", "us_ft", "mm")
+
+
+@dataclass(frozen=True)
 class InputConfig:
-    units: str = choice_field("auto", ("auto", "m", "ft", "us_ft", "mm"),
-                              doc="length unit of the scan; auto: the LAS CRS unit if present, else m")
+    units: str = choice_field("auto", LENGTH_UNIT_CHOICES,
+                              doc="length unit of the scan, both axes; auto: the file's CRS unit if present, else m")
     up_axis: str = choice_field("z", ("z", "y"), doc="which file axis points up")
     chunk_size: int = rng_field(1_000_000, 10_000, 100_000_000, doc="points read per chunk")
     max_nonfinite_fraction: float = rng_field(0.01, 0.0, 1.0, doc="refuse the scan above this share of NaN/inf points")
     setup: str = ""  # name of the scanner setup (instrument, step, stations), shown by compare
+    units_horizontal: str = choice_field("auto", LENGTH_UNIT_CHOICES, doc="horizontal unit; auto: input.units")
+    units_vertical: str = choice_field("auto", LENGTH_UNIT_CHOICES, doc="vertical unit; auto: input.units")
+    units_priority: str = choice_field("error", ("error", "config", "file"),
+                                       doc="when the file's CRS and the configured units disagree: refuse, or which "
+                                           "one wins")
+    skip_classes: tuple[int, ...] = rng_field((7, 18), 0, 255, doc="LAS classes not used (7 low, 18 high noise)")
+    skip_withheld: bool = True  # LAS points flagged withheld are not used
+    columns: Optional[ColumnsConfig] = None  # ASCII/.npy column map; None: header names, else x y z first, no station
+    file_stations: str = choice_field("auto", ("auto", "always", "never"),
+                                      doc="several input files: number their points' stations by file (auto: only "
+                                          "files without station ids)")
 
 
 @dataclass(frozen=True)

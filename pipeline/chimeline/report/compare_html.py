@@ -95,7 +95,7 @@ def compare_outputs(result) -> tuple[dict, dict]:
                    for r in runs],
           "pairs": [{"reference": p["reference"], "run": p["run"], "same_tank": p["same_tank"], "noise": p["noise"],
                      "profile": {k: v for k, v in p["profile"].items() if not isinstance(v, np.ndarray)}} for p in pairs]}
-    lines = [f"# chimeline QA comparison: noise per run and station, lengths in metres", f"# Caution: {CAUTION}",
+    lines = ["# chimeline QA comparison: noise per run and station, lengths in metres", f"# Caution: {CAUTION}",
              "run,station,sigma_m,ci95_lo_m,ci95_hi_m,dof"]
     for r in runs:
         lines.append(f"{r['dir']},all,{r['sigma']!r},{r['ci'][0]!r},{r['ci'][1]!r},{r['dof']}")

@@ -28,12 +28,15 @@ def rerun(run_dir, out_dir, sets, progress=None):
     """Run again; returns (changed keys [(key, old, new)], headline results [(name, old, new)])."""
     before = read_run_folder(run_dir, need_config=True)
     try:
-        scan = Path(before.summary["input"]["path"])
+        inp = before.summary["input"]
+        scans = [Path(p) for p in inp.get("paths") or [inp["path"]]]
         h0 = headline(before)
     except (KeyError, TypeError) as exc:
         raise InputError(f"{before.path / 'profile.json'}: missing or malformed entry {exc}") from None
-    if not scan.exists():
-        raise InputError(f"{before.path}: the earlier input {scan} is no longer there")
+    for scan in scans:
+        if not scan.exists():
+            raise InputError(f"{before.path}: the earlier input {scan} is no longer there")
+    scan = scans if len(scans) > 1 else scans[0]
     res = run_scan(scan, out_dir, sets=sets, progress=progress, base_mapping=before.config,
                    base_source=str(before.path / CONFIG_YAML))
     a, b = flatten(before.config), flatten(res.resolved)

@@ -6,8 +6,10 @@ then every chunk is cut down to the thin ring around the shell base before the n
 """
 from __future__ import annotations
 
+import concurrent.futures
 import dataclasses
 import logging
+import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -16,15 +18,15 @@ from typing import Callable, Optional
 import numpy as np
 
 from ..config import ChimelineConfig, load_config
-from ..core.hashing import sha256_file
+from ..core.hashing import sha256_file, sha256_text
 from ..core.rng import Purpose, stream
 from ..errors import InputError, StageError
 from ..evaluate.results import Evaluation
 from ..io.atomic import check_writable, staging_dir, write_files
 from ..io.pdf import html_to_pdf
-from ..io.readers import open_scan
+from ..io.readers import expand_inputs, open_scans
 from ..report.run_files import run_outputs
-from ..stages.frame import Frame, check_extent, make_frame, tie_azimuth_zero
+from ..stages.frame import Frame, check_extent, make_frame, precision_warnings, tie_azimuth_zero
 from ..stages.geometry import FaceSampler, ShellGeometry, measure_geometry
 from ..stages.junction import Junction, RingFilter, extract_junction
 from ..stages.noise import NoiseEstimate, attach_uncertainty, estimate_noise
@@ -59,6 +61,8 @@ class RunResult:
     shell_sample: np.ndarray  # (s, 3) local m, points near the shell face at all heights
     evaluation: Optional[Evaluation] = None
     geometry: Optional[ShellGeometry] = None  # None with geometry.enabled: false or too little shell face
+    scan_paths: tuple = ()  # every input file (several for tiles or one file per station); scan_path is the first
+    input_sha256_files: tuple = ()  # (str,) SHA-256 of each input file, in scan_paths order
 
     @property
     def out_units(self) -> str:
@@ -71,20 +75,22 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     """Run every stage on ``scan``; no files are written, no evaluation is made."""
     progress = progress or (lambda *a: None)
     timings, warnings, counts = {}, [], {}
-    scan = Path(scan)
+    paths = expand_inputs(scan if isinstance(scan, (list, tuple)) else [scan])
+    scan = paths[0]
     t = time.perf_counter()
     progress("read", 0, None)
-    src = open_scan(scan)
+    src = open_scans(paths, cfg.input)
     rng = np.random.default_rng(cfg.seed)
     sample = src.sample(cfg.shell.sample_points, rng)
     fin = np.isfinite(sample.xyz).all(axis=1)
     timings["read_sample"] = time.perf_counter() - t
-    log.info("read: %s, %d points, sample of %d", scan.name, src.n_points, len(sample.xyz))
+    log.info("read: %s%s, %d points, sample of %d", scan.name, f" and {len(paths) - 1} more" if len(paths) > 1 else "",
+             src.n_points, len(sample.xyz))
 
     t = time.perf_counter()
     if fin.sum() == 0:
         raise InputError(f"{scan}: no point has finite coordinates")
-    frame = make_frame(sample.xyz, src.units_hint, cfg.input, cfg.frame, warnings)
+    frame = make_frame(sample.xyz, src.crs or src.units_hint, cfg.input, cfg.frame, warnings, path=scan)
     local = frame.to_local(sample.xyz[fin])
     check_extent(scan, local, frame, cfg.shell.min_radius, cfg.shell.max_radius)
     hint = frame.file_xy_to_local(cfg.tank.center_hint) if cfg.tank.center_hint is not None else None
@@ -92,7 +98,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
 
     t = time.perf_counter()
     progress("shell", 0, None)
-    shell = fit_shell(local, cfg.shell, rng, center_hint=hint, metres_per_unit=frame.metres_per_unit)
+    shell = fit_shell(local, cfg.shell, rng, center_hint=hint, metres_per_unit=frame.metres_per_unit_horizontal)
     if cfg.frame.azimuth_zero_at is not None:
         frame = tie_azimuth_zero(frame, shell, cfg.frame.azimuth_zero_at, scan)
         log.info("frame: azimuth 0 points at %s: %.3f deg clockwise from +Y", list(cfg.frame.azimuth_zero_at),
@@ -111,7 +117,9 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     every = max(1, stride // face.stride) if face else 1  # the reader strides for the face; plots take every k-th
     n_read = n_bad = 0
     up = 2 if frame.up_axis == "z" else 1
-    for n, band, strided, bad in src.stream(cfg.input.chunk_size, up, ring_filter.up_band_file(), stride // every):
+    bounds = _plan_bounds(shell, frame, cfg.junction.band_outside, full_height=face is not None)
+    for n, band, strided, bad in src.stream(cfg.input.chunk_size, up, ring_filter.up_band_file(), stride // every,
+                                            bounds):
         n_read += n
         n_bad += bad
         ok = np.isfinite(band.xyz).all(axis=1)
@@ -127,6 +135,11 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
         plot_parts.append(sp[::every])
         progress("stream", n_read, src.n_points)
     counts["face_keep_fraction"] = round(ring_filter.face_keep_fraction, 6)
+    counts["decoded_fraction"] = round(min(src.decoded / max(src.n_points, 1), 1.0), 6)
+    counts["skipped"] = src.skipped_counts
+    if src.decoded < src.n_points:
+        log.info("stream: decoded %.1f %% of the file (the octree nodes that meet the tank's box)",
+                 100 * src.decoded / max(src.n_points, 1))
     if n_read and n_bad / n_read > cfg.input.max_nonfinite_fraction:
         raise InputError(f"{scan}: {n_bad} of {n_read} points have NaN or infinite coordinates "
                          f"(more than input.max_nonfinite_fraction = {cfg.input.max_nonfinite_fraction})")
@@ -180,6 +193,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     log.debug("noise: per station %s", "; ".join(
         f"{st.station}: {st.within_bin.sigma * 1e3:.3f} mm, offset {st.offset * 1e3:+.2f} mm"
         for st in noise.stations if st.within_bin is not None))
+    warnings += precision_warnings(src.coordinate_quantum, src.storage, frame, noise.sigma)
     if not noise.agree:
         warnings.append(f"noise estimators disagree: within-bin {noise.within_bin.sigma * 1e3:.2f} mm, pairs "
                         f"{noise.pairs.sigma * 1e3:.2f} mm (F test p = {noise.agreement_p:.2g})")
@@ -204,7 +218,8 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     return RunResult(scan_path=scan, config=cfg, resolved=resolved, config_source=source, frame=frame, shell=shell,
                      junction=junction, profile=profile, noise=noise, counts=counts, timings=timings,
                      warnings=tuple(warnings), input_sha256="", n_points_read=n_read,
-                     plot_sample=plot_sample, ring_sample=rs, shell_sample=shell_sample, geometry=geometry)
+                     plot_sample=plot_sample, ring_sample=rs, shell_sample=shell_sample, geometry=geometry,
+                     scan_paths=tuple(paths))
 
 
 def _geometry(face, reader_stride, shell, frame, profile, cfg, counts, timings, warnings) -> Optional[ShellGeometry]:
@@ -225,6 +240,30 @@ def _geometry(face, reader_stride, shell, frame, profile, cfg, counts, timings, 
     return geo
 
 
+def _plan_bounds(shell: ShellFit, frame: Frame, band_outside: float, full_height: bool = False):
+    """The base ring's plan box in file units ((3,) mins, (3,) maxs), for sources with a spatial index; the up axis
+    is left open (the reader restricts it to the base band) unless ``full_height``, when it spans the shell's seen
+    height (the geometry stage samples the face at all heights). None for y-up files."""
+    if frame.up_axis != "z":
+        return None
+    r = shell.radius + band_outside + 0.5  # m: a margin for the axis tilt over the band and the fit
+    c = np.asarray(shell.center[:2], dtype=float)
+    lo, hi = frame.to_file_xy(c - r), frame.to_file_xy(c + r)
+    zlo, zhi = -np.inf, np.inf
+    if full_height:
+        zlo = (shell.z_min - 1.0) / frame.metres_per_unit + frame.origin[2]
+        zhi = (shell.z_max + 1.0) / frame.metres_per_unit + frame.origin[2]
+    return np.array([lo[0], lo[1], zlo]), np.array([hi[0], hi[1], zhi])
+
+
+def _hash_inputs(paths, stop: threading.Event) -> tuple[str, tuple]:
+    """(SHA-256 of one file, or of the list of per-file digests for several; per-file digests)."""
+    each = tuple(sha256_file(p, stop=stop) for p in paths)
+    if len(each) == 1:
+        return each[0], each
+    return sha256_text("\n".join(each)), each
+
+
 def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_mapping: dict | None = None,
              base_source: str = "") -> RunResult:
     """Resolve the config, process the scan, evaluate when the config has tank data, write every output.
@@ -235,11 +274,20 @@ def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_ma
     out_dir = Path(out_dir)
     check_writable(out_dir)
     t0 = time.perf_counter()
-    res = process_scan(scan, cfg, resolved, source, progress)
+    paths = expand_inputs(scan if isinstance(scan, (list, tuple)) else [scan])
+    # the input is hashed on another thread while the scan streams (hashlib releases the GIL on large blocks)
+    stop = threading.Event()
+    with concurrent.futures.ThreadPoolExecutor(max_workers=1) as pool:
+        hashing = pool.submit(_hash_inputs, [p for p in paths if Path(p).is_file()], stop)
+        try:
+            res = process_scan(paths, cfg, resolved, source, progress)
+        except BaseException:
+            stop.set()  # a failed run does not wait for the hash
+            raise
+        t = time.perf_counter()
+        sha, sha_each = hashing.result()
     timings = dict(res.timings)
-    t = time.perf_counter()
-    sha = sha256_file(scan)
-    timings["hash"] = time.perf_counter() - t
+    timings["hash_wait"] = time.perf_counter() - t
     t = time.perf_counter()
     if progress is not None:
         progress("evaluate", 0, None)
@@ -247,7 +295,7 @@ def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_ma
     if ev is not None:
         timings["evaluate"] = time.perf_counter() - t
     timings["total"] = time.perf_counter() - t0
-    res = dataclasses.replace(res, input_sha256=sha, evaluation=ev, timings=timings)
+    res = dataclasses.replace(res, input_sha256=sha, input_sha256_files=sha_each, evaluation=ev, timings=timings)
     if progress is not None:
         progress("report", 0, None)
     files = run_outputs(res)
