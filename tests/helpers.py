@@ -2,7 +2,11 @@
 from __future__ import annotations
 
 import copy
+import os
 import shutil
+import subprocess
+import sys
+import tarfile
 from pathlib import Path
 
 import numpy as np
@@ -82,3 +86,36 @@ def chromium():
         if p:
             return p
     return None
+
+
+def laspy_corpus() -> list[Path]:
+    """The LAS/LAZ files of laspy's own test data (tests/data in its source distribution, for the installed
+    version), downloaded once with pip into tests/.cache/. Skips the calling test when the download fails
+    (offline), except in CI (env CI set), where it fails."""
+    import importlib.metadata
+
+    import pytest
+
+    version = importlib.metadata.version("laspy")
+    cache = ROOT / "tests" / ".cache" / f"laspy-{version}-data"
+    if not (cache / ".complete").exists():
+        dl = ROOT / "tests" / ".cache" / "download"
+        dl.mkdir(parents=True, exist_ok=True)
+        r = subprocess.run([sys.executable, "-m", "pip", "download", "--no-deps", "--no-binary", ":all:",
+                            f"laspy=={version}", "-d", str(dl), "-q", "--disable-pip-version-check"],
+                           capture_output=True, text=True, timeout=600)
+        sdist = dl / f"laspy-{version}.tar.gz"
+        if r.returncode != 0 or not sdist.exists():
+            msg = f"could not download laspy {version}'s source distribution (offline?): {r.stderr.strip()[-300:]}"
+            if os.environ.get("CI"):
+                pytest.fail(msg)
+            pytest.skip(msg)
+        cache.mkdir(parents=True, exist_ok=True)
+        with tarfile.open(sdist) as tf:
+            for m in tf.getmembers():
+                parts = Path(m.name).parts
+                if m.isfile() and "tests" in parts and "data" in parts and m.name.lower().endswith((".las", ".laz")):
+                    with tf.extractfile(m) as src:
+                        (cache / "_".join(parts[parts.index("data") + 1:])).write_bytes(src.read())
+        (cache / ".complete").touch()
+    return sorted(p for p in cache.iterdir() if p.suffix.lower() in (".las", ".laz"))
