@@ -27,7 +27,9 @@ CONFIG_YAML = "config.resolved.yaml"
 EVALUATION_JSON = "evaluation.json"
 
 PROFILE_COLUMNS = ("azimuth_deg", "elevation", "std_error", "n_points", "n_rejected", "n_stations", "n_eff",
-                   "scale", "status")
+                   "scale", "status", "evidence", "width_deg")
+#: columns a profile.csv must have (files written before the evidence columns existed lack the last two)
+PROFILE_REQUIRED = PROFILE_COLUMNS[:9]
 RESIDUAL_COLUMNS = ("azimuth_deg", "station", "bin", "residual")
 
 
@@ -48,6 +50,8 @@ class ProfileTable:
     n_eff: np.ndarray  # (n_bins,) nan where no value
     scale: np.ndarray  # (n_bins,) robust scale of the kept points, nan where fewer than two
     status: np.ndarray  # (n_bins,) str: ok, sparse, suspect, empty
+    evidence: Optional[np.ndarray] = None  # (n_bins,) str: kinds of junction evidence joined ("top+foot", ...)
+    width_deg: Optional[np.ndarray] = None  # (n_bins,) degrees of azimuth the bin's value used (nan where empty)
 
     def to_csv(self) -> str:
         buf = io.StringIO()
@@ -58,19 +62,24 @@ class ProfileTable:
             w.writerow([f"{self.azimuth_deg[i]:.4f}", f"{self.elevation[i]:.5f}" if fin else "",
                         f"{self.std_error[i]:.6f}" if fin else "", int(self.n_points[i]), int(self.n_rejected[i]),
                         int(self.n_stations[i]), _fmt(self.n_eff[i], ".2f"), _fmt(self.scale[i], ".6f"),
-                        self.status[i]])
+                        self.status[i], self.evidence[i] if self.evidence is not None else "",
+                        _fmt(self.width_deg[i], ".4f") if self.width_deg is not None else ""])
         return buf.getvalue()
 
     @classmethod
     def from_csv(cls, text: str, source) -> "ProfileTable":
-        rows = _rows(text, source, PROFILE_COLUMNS)
+        rows = _rows(text, source, PROFILE_REQUIRED)
         num = lambda c, i, r: _cell(r, c, i, source, empty_ok=True)  # noqa: E731
-        cols = {c: np.array([num(c, i, r) for i, r in enumerate(rows, start=2)]) for c in PROFILE_COLUMNS[:-1]}
+        cols = {c: np.array([num(c, i, r) for i, r in enumerate(rows, start=2)]) for c in PROFILE_REQUIRED[:-1]}
+        has_ev = bool(rows) and "evidence" in rows[0] and "width_deg" in rows[0]
         return cls(azimuth_deg=cols["azimuth_deg"], elevation=cols["elevation"], std_error=cols["std_error"],
                    n_points=np.nan_to_num(cols["n_points"]).astype(int),
                    n_rejected=np.nan_to_num(cols["n_rejected"]).astype(int),
                    n_stations=np.nan_to_num(cols["n_stations"]).astype(int), n_eff=cols["n_eff"],
-                   scale=cols["scale"], status=np.array([r["status"].strip() for r in rows], dtype=str))
+                   scale=cols["scale"], status=np.array([r["status"].strip() for r in rows], dtype=str),
+                   evidence=np.array([(r["evidence"] or "").strip() for r in rows], dtype=str) if has_ev else None,
+                   width_deg=np.array([num("width_deg", i, r) for i, r in enumerate(rows, start=2)])
+                   if has_ev else None)
 
 
 @dataclass(frozen=True)

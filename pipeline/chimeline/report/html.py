@@ -37,6 +37,26 @@ def embed_png(png: bytes, alt: str, name: str) -> str:
     return f'<img alt="{html.escape(alt)}" data-plot="{name}" src="data:image/png;base64,{b}">'
 
 
+def _evidence_rows(res, n, units) -> str:
+    """Rows on mixed pixels, file resolution and the junction evidence joined per bin."""
+    rows = []
+    if np.isfinite(n.contamination) and n.contamination > 1.0:
+        rows.append(f"<tr><td>mixed pixels</td><td>plain within-bin scatter {_fmt_len(n.classical_sigma, units, True)}"
+                    f", {100 * (n.contamination - 1):.0f} % above the robust noise estimate</td></tr>")
+    if n.quantum > 0:
+        rows.append(f"<tr><td>file vertical resolution</td><td>{_fmt_len(n.quantum, units, True)}; rounding error of a "
+                    f"bin mean that averaging cannot remove {_fmt_len(n.quantization_bias_sigma, units, True)}</td></tr>")
+    f = res.profile.fusion
+    if f is not None:
+        kinds = "; ".join(f"{k.kind}: offset to the top {_fmt_len(k.offset, units, True)}, scatter "
+                          f"{_fmt_len(k.sigma, units, True)}" for k in f.kinds) or "top only"
+        counts = ", ".join(f"{_e(k)} {v}" for k, v in f.counts.items())
+        rows.append(f"<tr><td>junction evidence per bin</td><td>{counts} ({kinds}); {f.n_widened} bins widened (up "
+                    f"to {f.max_width_deg:.3g} deg); ok = standard error at most "
+                    f"{_fmt_len(f.max_std_error, units, True)}</td></tr>")
+    return "".join(rows)
+
+
 def _e(x) -> str:
     return html.escape(str(x))
 
@@ -111,9 +131,13 @@ def render_report(res=None, ev=None, units="m", figures=None, resolved=None, con
                    f"{_fmt_len(n.pairs.sigma, units, True) if n.pairs else '-'}; ratio "
                    f"{(n.within_bin.sigma / n.pairs.sigma) if n.pairs else float('nan'):.3f}, F test p = {_p(n.agreement_p)}: "
                    f"{'consistent (within the configured tolerance)' if n.agree else 'the estimators DISAGREE'}</td></tr>"
-                   f"<tr><td>station vertical offsets (registration), spread</td><td>{_fmt_len(n.registration_sigma, units, True)}"
-                   f" ({'removed from the profile' if res.profile.leveled else 'reported only'}); datum 1 sigma "
-                   f"{_fmt_len(n.datum_sigma, units, True)}</td></tr>"
+                   + (f"<tr><td>station vertical offsets (registration), spread</td><td>{_fmt_len(n.registration_sigma, units, True)}"
+                      f" ({'removed from the profile' if res.profile.leveled else 'reported only'}); datum 1 sigma "
+                      f"{_fmt_len(n.datum_sigma, units, True)}</td></tr>" if n.station_ids else
+                      "<tr><td>station levelling</td><td>NOT POSSIBLE: the scan carries no station ids. The correlated "
+                      f"(registration) error estimated from the data, {_fmt_len(n.correlated_sigma, units, True)}, is "
+                      "in every standard error.</td></tr>")
+                   + _evidence_rows(res, n, units) +
                    f"<tr><td>coverage of the circumference (ok bins)</td><td>{100 * res.profile.coverage:.1f} % of "
                    f"{len(res.profile.azimuth_deg)} bins of {res.profile.bin_width_deg:.3g} deg</td></tr>"
                    f"<tr><td>shell radius at the base</td><td>{_fmt_len(res.shell.radius, units)}</td></tr></table>")
