@@ -49,6 +49,10 @@ log = logging.getLogger(__name__)
 OFFSET_WINDOW_DEG = 20.0  # running median of a kind's offset to the top: +- this
 MIN_PAIRS = 8  # bins where a kind and the top are both seen, for a local offset
 KINDS = ("top", "foot", "step")
+ROUGH_TOP = 2.0  # roughness of the top beyond which a disagreement with the foot is taken seriously
+FOOT_ABOVE = 0.001  # m: a shell foot this far above a rough projection top means the top was pulled down
+FOOT_BELOW = 0.004  # m: ... this far below it, that the two disagree
+KIND_SIGMA_FLOOR = 0.0002  # m: no kind is trusted beyond this per bin
 CHI2_1_MEDIAN = 0.454936423119572  # median of chi-square with 1 degree of freedom (scipy.stats.chi2(1).median())
 
 
@@ -71,6 +75,7 @@ class Fusion:
     n_widened: int  # bins whose width was widened
     n_conflicts: int  # bins where a kind disagreed with the most precise one and was left out
     roughness: float  # median chi-square of the top's second differences over its own: > 1 inflates its SE
+    foot_disagreement: float  # m, |foot - top| offset beyond FOOT_ABOVE / FOOT_BELOW (added to every SE), else 0
     counts: dict  # evidence label -> bins
     max_std_error: float  # m, the limit of an ok bin
     max_width_deg: float
@@ -98,16 +103,35 @@ def fuse_evidence(p: Profile, j: Junction, noise: NoiseEstimate, cfg: ProfileCon
     # shell) the lowest visible face returns mark the occluder's edge, not the junction
     anchored = top[-1, 3] > 0
     own = top[0, 3] > 0
-    for kind in list(edges):
-        edges[kind][:, :, ~anchored] = np.nan
-        edges[kind][:, 3, ~anchored] = 0
-        own |= edges[kind][0, 3] > 0
+    for kind, ev in (("foot", j.foot), ("step", j.step)):
+        if ev is not None and len(ev.z):
+            # a few face or step returns (too few for an edge of their own) still show the base is in view
+            own |= anchored & (np.bincount(_bin_of(ev.azimuth_deg, w, nb), minlength=nb) > 0)
+        if kind in edges:
+            edges[kind][:, :, ~anchored] = np.nan
+            edges[kind][:, 3, ~anchored] = 0
     models, kinds = {}, []
     for kind, e in edges.items():
-        m = _kind_model(kind, e, top, centres)
+        m = _kind_model(kind, e, top, centres, noise.quantum)
         if m is not None:
             models[kind] = m
             kinds.append(m[0])
+    # the shell foot is the same edge as the plate top. When the top's bins scatter well beyond their noise
+    # (roughness above ROUGH_TOP: returns off the plate pass for it) and the foot sits clearly above it (more than
+    # FOOT_ABOVE and 3 standard errors of the offset) those returns have likely pulled the top down (mixed pixels
+    # at the outer edge sink below the plate); far below (FOOT_BELOW), one of the two is wrong. Which one is
+    # unknown: the disagreement joins every bin's systematic error. (A smooth top with a foot above it is the
+    # normal case of coarse scan rows, whose lowest face return sits above the junction.)
+    disagreement = 0.0
+    if "foot" in models and roughness > ROUGH_TOP:
+        fm = models["foot"][0]
+        off, off_se = fm.offset, 1.25 * fm.sigma / np.sqrt(max(fm.n_pairs, 1))
+        if (off > FOOT_ABOVE or off < -FOOT_BELOW) and abs(off) > 3 * off_se:
+            disagreement = abs(off)
+    if disagreement > 0:
+        top[:, 2] += disagreement ** 2
+        for e in edges.values():
+            e[:, 2] += disagreement ** 2
     el = np.full(nb, np.nan)
     se = np.full(nb, np.nan)
     used = np.full(nb, "", dtype=object)
@@ -127,11 +151,12 @@ def fuse_evidence(p: Profile, j: Junction, noise: NoiseEstimate, cfg: ProfileCon
         if best is not None:
             el[b], se[b], used[b], conflict[b], iw = best
             width_used[b] = widths[iw]
-    status = _status(p, el, se, top[0, 3], cfg)
+    status = _status(p, el, se, top[0, 3], used, cfg)
     counts = {k: int(v) for k, v in zip(*np.unique(used[status != "empty"].astype(str), return_counts=True))}
     n_widened = int(((width_used > w * 1.001) & (status != "empty")).sum())
     fusion = Fusion(kinds=tuple(kinds), n_widened=n_widened, n_conflicts=int((conflict & (status != "empty")).sum()),
-                    roughness=float(roughness), counts=counts, max_std_error=cfg.max_std_error,
+                    roughness=float(roughness), counts=counts,
+                    foot_disagreement=float(disagreement), max_std_error=cfg.max_std_error,
                     max_width_deg=float(widths[-1]))
     neff = np.where(np.isfinite(se) & (se > 0), noise.sigma ** 2 / se ** 2, np.nan)
     cov = float((status == "ok").mean())
@@ -153,6 +178,10 @@ def _roughness(v, var) -> float:
     if ok.sum() < 20:
         return 1.0
     return float(np.median(d2[ok] ** 2 / pv[ok]) / CHI2_1_MEDIAN)
+
+
+def _bin_of(az, w, nb):
+    return (np.asarray(az) / w).astype(int) % nb
 
 
 def _prior_at(j: Junction, az) -> np.ndarray:
@@ -226,12 +255,13 @@ def _lower_edge(z, lo, hi) -> Optional[float]:
     return float(L - (z < L).sum() / rho)
 
 
-def _kind_model(kind, e, top, centres):
+def _kind_model(kind, e, top, centres, quantum=0.0):
     """(KindModel, local offsets (nb,), variance per bin and width (n_w, nb)) or None.
 
     The kind's own scatter comes from its bin-to-bin roughness at the bin width, so a poor top cannot make it
     look precise: sigma_k^2 = median(second difference^2) / (0.4549 x 1.5) (a second difference of independent
-    values has 1.5 times their variance); at wider windows it shrinks with the number of returns. The local
+    values has 1.5 times their variance), at least the rounding's q^2 / 12 and KIND_SIGMA_FLOOR; at wider
+    windows it shrinks with the number of returns. The local
     offset to the top is a median over the bins near it, with variance (pi / 2) (sigma_k^2 + SE_top^2) / n.
     """
     both = np.isfinite(e[0, 0]) & np.isfinite(top[0, 0]) & (top[0, 3] > 0)
@@ -244,7 +274,8 @@ def _kind_model(kind, e, top, centres):
     ok = np.isfinite(d2)
     if ok.sum() < MIN_PAIRS:
         return None
-    s2 = float(np.median(d2[ok] ** 2)) / (CHI2_1_MEDIAN * 1.5)
+    # floor: rounded heights can make a kind look perfectly smooth (no better than the rounding, q^2 / 12)
+    s2 = max(float(np.median(d2[ok] ** 2)) / (CHI2_1_MEDIAN * 1.5), quantum ** 2 / 12, KIND_SIGMA_FLOOR ** 2)
     top_var = float(np.median(top[0, 1][both]))
     offs = np.full(len(centres), glob)
     off_var = np.full(len(centres), np.pi / 2 * (s2 + top_var) / both.sum())
@@ -288,14 +319,20 @@ def _join(b, iw, top, edges, models, reject_k):
     return value, float(np.sqrt(rand + syst)), label, conflict
 
 
-def _status(p: Profile, el, se, n_top, cfg):
+def _status(p: Profile, el, se, n_top, used, cfg):
     """empty (no evidence), sparse (standard error above the limit, or too few top points with top alone),
-    suspect (many rejected, or an isolated outlier), ok."""
+    suspect (most of a thin top-only bin rejected, or an isolated outlier), ok.
+
+    The noise-based rejection keeps the plate's returns and drops the rest, so in a scan with many mixed pixels
+    most bins reject many candidates; that alone says nothing against the kept ones (their scatter is in the
+    standard error). A bin is suspect for its rejections only when under 3 top points remain and nothing else
+    supports it."""
     status = np.where(~np.isfinite(el), "empty",
                       np.where(se > cfg.max_std_error, "sparse", "ok")).astype(object)
-    top_only_thin = (n_top > 0) & (n_top < cfg.min_points)
-    status[top_only_thin & (status == "ok")] = "sparse"
+    top_only = used == "top"
+    status[top_only & (n_top < cfg.min_points) & (status == "ok")] = "sparse"
     tot = p.n_points + p.n_rejected
-    suspect = (p.n_points > 0) & (p.n_rejected / np.maximum(tot, 1) > cfg.max_reject_fraction)
+    suspect = top_only & (p.n_points > 0) & (p.n_points < 3) & \
+        (p.n_rejected / np.maximum(tot, 1) > cfg.max_reject_fraction)
     status[suspect & (status == "ok")] = "suspect"
     return flag_isolated(el, se, status.astype(str), cfg.reject_k)

@@ -144,6 +144,10 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     t = time.perf_counter()
     profile = fuse_evidence(profile, junction, noise, cfg.profile)
     timings["fusion"] = time.perf_counter() - t
+    if profile.fusion is not None and profile.fusion.foot_disagreement > 0:
+        warnings.append(f"the projection top and the shell foot disagree by {profile.fusion.foot_disagreement * 1e3:.1f} "
+                        f"mm: returns off the plate (mixed pixels) may have moved the top, or the foot is hidden; the "
+                        f"disagreement is in every standard error")
     if profile.coverage < cfg.profile.min_coverage:
         msg, advice, no_tank = coverage_message(profile, junction, shell, cfg.profile)
         if no_tank or cfg.profile.on_low_coverage == "refuse":
@@ -152,7 +156,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
         log.warning("profile: %s", msg)
     for g0, g1 in profile.gaps:
         warnings.append(f"no junction data from {g0:.1f} to {g1:.1f} deg (gap left empty)")
-    warnings.extend(noise_warnings(noise, cfg.noise))
+    warnings.extend(noise_warnings(noise, cfg.noise, profile))
     if not noise.agree:
         warnings.append(f"noise estimators disagree: within-bin {noise.within_bin.sigma * 1e3:.2f} mm, pairs "
                         f"{noise.pairs.sigma * 1e3:.2f} mm (F test p = {noise.agreement_p:.2g})")
@@ -223,14 +227,19 @@ def vertical_quantum(src, frame: Frame) -> float:
     return float(np.asarray(q, dtype=float)[up]) * frame.metres_per_unit
 
 
-def noise_warnings(noise: NoiseEstimate, cfg) -> list:
+def noise_warnings(noise: NoiseEstimate, cfg, profile: Profile) -> list:
     """What the noise stage found that the reader of the results must know."""
     out = []
+    if noise.station_ids and len(noise.stations) >= 2 and not profile.station_offset:
+        out.append("the stations share no bins: their relative vertical offsets (registration) cannot be measured "
+                   "and are not in the standard errors")
     if noise.quantum > 0 and noise.quantum ** 2 / 12 > 0.1 * noise.sigma ** 2:
+        hidden = (f"; the noise itself is below what this resolution shows (under {noise.quantum / 4 * 1e3:.2g} mm)"
+                  if noise.sigma < noise.quantum / 4 else "")
         out.append(f"the file's vertical resolution ({noise.quantum * 1e3:.3g} mm) is not small against the "
                    f"noise ({noise.sigma * 1e3:.2f} mm): rounding (q^2/12 per point, and "
                    f"{noise.quantization_bias_sigma * 1e3:.2f} mm per bin that averaging cannot remove) is in "
-                   f"the standard errors; export the scan with a finer scale if you can")
+                   f"the standard errors{hidden}; export the scan with a finer scale if you can")
     if not noise.station_ids:
         out.append(f"the scan carries no station ids: station levelling was not possible; the correlated "
                    f"(registration) error estimated from the data, {noise.correlated_sigma * 1e3:.2f} mm, is in "
