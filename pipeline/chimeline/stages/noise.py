@@ -30,9 +30,8 @@ g^-1 of the measured variance, and every bin mean carries b^2 that no number of 
 Registration: station vertical offsets come from the profile stage (bins seen by more than one station,
 z = mu_bin + offset_station, offsets summing to zero); their spread, less its estimation noise, is
 ``registration_sigma``. Without station ids nothing can be levelled: the correlated error is estimated from
-the excess of the within-bin scatter over the point noise (stations that disagree widen the bins they share):
-sigma_c^2 = 2 mean_b(s_b^2 - sigma^2), the ratio of the bins' mean squared offset error to their mean
-within-bin offset spread when the stations' weights cross-fade linearly between neighbouring stations.
+the excess of the within-bin scatter (out to 4 noise sigmas) over the point noise: stations that disagree widen
+the bins they share; sigma_c^2 = 2 x the excess (``_correlated_sigma``).
 
 ``attach_uncertainty`` then gives each profile bin its 1-sigma standard error from the per-station noise and
 the registration spread (``bin_variance``):
@@ -65,6 +64,7 @@ TRUNCATION_K = 2.5  # robust noise: truncated maximum likelihood at +- this many
 TRUNCATED_EFFICIENCY = 0.65
 MIN_DOF = 30  # an estimator with fewer degrees of freedom gives way to the other
 CORRELATED_ALLOWANCE = 0.003  # m: the most station disagreement the noise-based rejection allows for
+MIXTURE_K = 4.0  # without station ids: within-bin residuals beyond this many noise sigmas are not stations
 
 
 @dataclass(frozen=True)
@@ -326,9 +326,7 @@ def estimate_noise(p: Profile, j: Junction, cfg: NoiseConfig, reject_k: float = 
     corr = 0.0
     if not station_ids and pairs is not None and pairs_source == "file order":
         adopted, est = "pairs", pairs
-        # the stations' disagreement widens every bin they share: 2 x the excess of the within-bin variance
-        # (robust, every station in one cell) over the noise
-        corr = float(np.sqrt(2.0 * max(within.sigma ** 2 - pairs.sigma ** 2, 0.0))) if within.dof else 0.0
+        corr = _correlated_sigma(z, b, inner, pairs.sigma, q)
     elif pairs is not None and within.dof < MIN_DOF <= pairs.dof:
         adopted, est = "pairs", pairs  # bins too thin to hold two points: the pairs carry the estimate
     elif p_val is not None:
@@ -358,6 +356,20 @@ def estimate_noise(p: Profile, j: Junction, cfg: NoiseConfig, reject_k: float = 
                          contamination=float(contamination), interior=inner is not kept, pairs_source=pairs_source,
                          station_ids=station_ids, correlated_sigma=float(corr), quantum=q,
                          quantization_bias_sigma=bias_q)
+
+
+def _correlated_sigma(z, b, mask, sigma, q):
+    """sigma_c without station ids: stations whose offsets differ by Delta widen the bins they share by
+    w (1 - w) Delta^2. The within-bin scatter (leave-one-out residuals, every station in one cell) is taken out
+    to ``MIXTURE_K`` x the noise, wide enough to keep stations a few mm apart and to drop returns far off the
+    plate; its excess over the noise, v, gives sigma_c^2 = 2 v (the mean squared offset error of a bin over the
+    mean within-bin spread when the stations' weights cross-fade linearly between neighbours)."""
+    r, _dof = _loo_residuals(z[mask], b[mask], np.zeros(int(mask.sum()), dtype=np.int64))
+    if len(r) < 10:
+        return 0.0
+    g = float(quantized_var(sigma, q))
+    r = r[np.abs(r) < MIXTURE_K * np.sqrt(g)]
+    return float(np.sqrt(max(2.0 * (np.mean(r ** 2) - g), 0.0))) if len(r) else 0.0
 
 
 def _residual_registration(z, b, s, kept, offsets, sigma):

@@ -135,10 +135,14 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
                            station_ids=station_ids)
     # reject again with the measured noise (mixed pixels widen the bins' own scatter), then measure again on
     # what is kept: the station offsets and registration terms no longer see the contaminants
+    first = noise
     for _ in range(2 if station_ids else 3):  # without ids the correlated error settles over the rounds
         profile = reject_with_noise(profile, junction, point_scale(junction, noise), cfg.profile)
         noise = estimate_noise(profile, junction, cfg.noise, cfg.profile.reject_k, quantum=quantum,
                                station_ids=station_ids)
+    # the contamination is what the scatter-based rejection let through, measured before the noise-based one
+    noise = dataclasses.replace(noise, classical_sigma=first.classical_sigma,
+                                contamination=first.classical_sigma / noise.sigma if noise.sigma > 0 else float("nan"))
     profile = attach_uncertainty(profile, junction, noise)
     timings["noise"] = time.perf_counter() - t
     t = time.perf_counter()
