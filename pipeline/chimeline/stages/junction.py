@@ -235,7 +235,7 @@ def _projection_width(d, dz, near, rmin, cfg):
 
     1. The step face: the projection's outer face is seen head-on while its top is seen at grazing incidence,
        so its returns pile up at one radius (W) with heights from the plate top down by the plate thickness. The
-       densest 3 mm radial slice of the returns within 30 mm below to 5 mm above the plate level, beyond
+       densest 3 mm radial slice of the returns within 8 mm below to 4 mm above the plate level, beyond
        ``rmin`` + 10 mm, is the face when it holds at least ``STEP_PEAK`` times the median slice density
        between ``rmin`` and it; W is the density-weighted centre of the slices above half the peak around it.
     2. Otherwise the plate-level share: returns within ``g`` = 3 robust sigma of the plate level (2.5-6 mm)
@@ -284,11 +284,14 @@ def _projection_width(d, dz, near, rmin, cfg):
 
 
 STEP_PEAK = 3.0  # density of the step face's slice over the median slice inside it
+#: m about the plate level: the step face's upper part (plates are 6-14 mm thick); a berm sloping away below the
+#: edge or a ringwall top a plate thickness down lies mostly outside it
+STEP_BAND = (-0.008, 0.004)
 
 
 def _step_face(dd, zz, rmin, limit, step=0.003):
     """(W, half width) of the step face's pile of returns, or None (see ``_projection_width``)."""
-    band = (zz > -0.03) & (zz < 0.005)
+    band = (zz > STEP_BAND[0]) & (zz < STEP_BAND[1])
     start = rmin + 0.01
     nb = int((limit - start) / step)
     if nb < 4:
