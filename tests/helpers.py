@@ -2,7 +2,11 @@
 from __future__ import annotations
 
 import copy
+import os
 import shutil
+import subprocess
+import sys
+import tarfile
 from pathlib import Path
 
 import numpy as np
@@ -86,10 +90,6 @@ CACHE = ROOT / "tests" / ".cache"
 def laspy_corpus() -> list[Path]:
     """The LAS/LAZ files of laspy's own test data (its source distribution, the installed version), downloaded
     once into tests/.cache. Offline: the test is skipped, except in CI (env CI set), where it fails."""
-    import os
-    import subprocess
-    import sys
-    import tarfile
 
     import laspy
     import pytest

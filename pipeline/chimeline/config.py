@@ -341,11 +341,14 @@ class ShellConfig:
     max_radius: float = rng_field(60.0, 0.2, 1000.0, doc="m")
     max_trials: int = rng_field(1500, 10, 1_000_000, doc="RANSAC trials per tank")
     inlier_tolerance: float = rng_field(0.03, 0.001, 1.0, doc="m, radial distance of RANSAC inliers")
-    min_inliers: int = rng_field(500, 10, 10_000_000)
+    min_inliers: int = rng_field(500, 10, 10_000_000, doc="shell inliers (on the voxel-thinned sample) a tank "
+                                                            "shell must have")
     min_height: float = rng_field(1.0, 0.1, 100.0, doc="m, vertical extent a shell must show")
     max_tanks: int = rng_field(4, 1, 20, doc="cylinders to look for")
     max_tilt_deg: float = rng_field(2.0, 0.0, 20.0)
     base_fit_height: float = rng_field(0.5, 0.2, 5.0, doc="m above the base used for the radius at the base")
+    min_coverage: float = rng_field(0.2, 0.0, 1.0, doc="share of the 72 five-degree sectors of the circle a tank "
+                                                       "shell's inliers must cover")
 
     def _check(self, prefix, source):
         if self.min_radius >= self.max_radius:
@@ -380,7 +383,8 @@ class JunctionConfig:
 class ProfileConfig:
     bin_width_deg: float = rng_field(1.0, 0.05, 45.0)
     bin_arc_length: Optional[float] = None  # m along the shell; overrides bin_width_deg
-    min_points: int = rng_field(4, 1, 10_000, doc="kept points for an 'ok' bin")
+    min_points: int = rng_field(1, 1, 10_000, doc="kept projection-top points for an 'ok' bin that has no other "
+                                                  "evidence (the standard error decides otherwise)")
     reject_k: float = rng_field(3.0, 1.5, 20.0, doc="robust z-score beyond which points are rejected")
     max_iterations: int = rng_field(10, 1, 100)
     max_reject_fraction: float = rng_field(0.5, 0.0, 1.0, doc="bins rejecting more are 'suspect'")
@@ -388,6 +392,8 @@ class ProfileConfig:
     on_low_coverage: str = choice_field("refuse", ("refuse", "flag"))
     station_leveling: str = choice_field("adjust", ("adjust", "report"),
                                          doc="remove relative station vertical offsets, or only report them")
+    max_std_error: float = rng_field(0.003, 0.0001, 1.0, doc="m: bins with a larger standard error are 'sparse'")
+    max_bin_width_deg: float = rng_field(3.0, 0.05, 45.0, doc="a thin bin widens up to this (never across a gap)")
 
 
 @dataclass(frozen=True)

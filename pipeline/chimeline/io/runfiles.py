@@ -30,7 +30,9 @@ EVALUATION_JSON = "evaluation.json"
 
 #: columns of profile.csv; lengths carry the unit as a suffix in the header (elevation_m, std_error_ft, ...)
 PROFILE_COLUMNS = ("azimuth_deg", "elevation", "std_error", "n_points", "n_rejected", "n_stations", "n_eff",
-                   "scale", "status")
+                   "scale", "status", "evidence", "width_deg")
+#: columns a profile.csv must have (files written before the evidence columns existed lack the last two)
+PROFILE_REQUIRED = PROFILE_COLUMNS[:9]
 PROFILE_LENGTHS = ("elevation", "std_error", "scale")
 RESIDUAL_COLUMNS = ("azimuth_deg", "station", "bin", "residual")
 RESIDUAL_LENGTHS = ("residual",)
@@ -73,6 +75,8 @@ class ProfileTable:
     scale: np.ndarray  # (n_bins,) robust scale of the kept points, nan where fewer than two
     status: np.ndarray  # (n_bins,) str: ok, sparse, suspect, empty
     units: str = "m"  # unit of the lengths (elevation, std_error, scale); "" when read from bare headers
+    evidence: Optional[np.ndarray] = None  # (n_bins,) str: kinds of junction evidence joined ("top+foot", ...)
+    width_deg: Optional[np.ndarray] = None  # (n_bins,) degrees of azimuth the bin's value used (nan where empty)
 
     def to_csv(self) -> str:
         """Full precision; length headers carry the unit; a comment line states units and the caution."""
@@ -85,20 +89,25 @@ class ProfileTable:
         for i in range(len(self.azimuth_deg)):
             w.writerow([_fmt(self.azimuth_deg[i]), _fmt(self.elevation[i]), _fmt(self.std_error[i]),
                         int(self.n_points[i]), int(self.n_rejected[i]), int(self.n_stations[i]), _fmt(self.n_eff[i]),
-                        _fmt(self.scale[i]), self.status[i]])
+                        _fmt(self.scale[i]), self.status[i], self.evidence[i] if self.evidence is not None else "",
+                        _fmt(self.width_deg[i]) if self.width_deg is not None else ""])
         return buf.getvalue()
 
     @classmethod
     def from_csv(cls, text: str, source) -> "ProfileTable":
-        rows, names, units = _unit_rows(text, source, PROFILE_COLUMNS, PROFILE_LENGTHS)
-        num = lambda c, i, r: _cell(r, names[c], i, source, empty_ok=True)  # noqa: E731
-        cols = {c: np.array([num(c, i, r) for i, r in enumerate(rows, start=2)]) for c in PROFILE_COLUMNS[:-1]}
+        rows, names, units = _unit_rows(text, source, PROFILE_REQUIRED, PROFILE_LENGTHS)
+        num = lambda c, i, r: _cell(r, names.get(c, c), i, source, empty_ok=True)  # noqa: E731
+        cols = {c: np.array([num(c, i, r) for i, r in enumerate(rows, start=2)]) for c in PROFILE_REQUIRED[:-1]}
+        has_ev = bool(rows) and "evidence" in rows[0] and "width_deg" in rows[0]
         return cls(azimuth_deg=cols["azimuth_deg"], elevation=cols["elevation"], std_error=cols["std_error"],
                    n_points=np.nan_to_num(cols["n_points"]).astype(int),
                    n_rejected=np.nan_to_num(cols["n_rejected"]).astype(int),
                    n_stations=np.nan_to_num(cols["n_stations"]).astype(int), n_eff=cols["n_eff"],
                    scale=cols["scale"], status=np.array([(r.get("status") or "").strip() for r in rows], dtype=str),
-                   units=units or "")
+                   units=units or "",
+                   evidence=np.array([(r["evidence"] or "").strip() for r in rows], dtype=str) if has_ev else None,
+                   width_deg=np.array([num("width_deg", i, r) for i, r in enumerate(rows, start=2)])
+                   if has_ev else None)
 
 
 @dataclass(frozen=True)

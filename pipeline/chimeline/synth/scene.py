@@ -161,6 +161,11 @@ class StationParams:
     max_range: float = rng_field(80.0, 5.0, 500.0)
     registration: RegistrationScene = field(default_factory=RegistrationScene)
     band: Optional[BandParams] = None
+    crease_mixed_prob: float = rng_field(0.0, 0.0, 1.0, doc="chance that a return whose footprint straddles the "
+                                                             "shell/plate crease is mixed (range between the two)")
+    edge_mixed_prob: float = rng_field(0.0, 0.0, 1.0, doc="chance that a return whose footprint straddles the "
+                                                           "projection's outer edge (plate top, step face, "
+                                                           "foundation) is mixed")
 
 
 @dataclass(frozen=True)
@@ -186,6 +191,9 @@ class OutputScene:
     units: str = choice_field("m", ("m", "ft", "us_ft"))
     georef_offset: tuple[float, float, float] = (0.0, 0.0, 0.0)
     chunk_rays: int = rng_field(2_000_000, 10_000, 50_000_000)
+    station_ids: bool = True  # false: a merged cloud (point source id 0 in LAS/LAZ; no station column otherwise)
+    scale: float = rng_field(1e-4, 1e-6, 0.1, doc="coordinate resolution in file units: the LAS/LAZ scale "
+                                                   "factor; ASCII keeps the decimals it implies")
 
 
 @dataclass(frozen=True)
