@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Optional
 
-from ..config import build, choice_field, load_yaml, rng_field, merge_sets
+from ..config import build, choice_field, date_field, load_yaml, rng_field, merge_sets
 from ..errors import ConfigError
 
 
@@ -190,7 +190,7 @@ class OutputScene:
 class Scene:
     name: str = "scene"
     terminal: str = "Invented terminal"
-    survey_date: str = "2026-06-15"
+    survey_date: str = date_field("2026-06-15")
     seed: int = rng_field(1, 0, 2**63 - 1)
     density: float = rng_field(1.0, 1e-4, 1000.0, doc="multiplies the ray count (angular steps / sqrt)")
     tank: TankScene = field(default_factory=TankScene)
