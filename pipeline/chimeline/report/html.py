@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import base64
-import datetime
 import html
 
 import numpy as np
@@ -69,8 +68,7 @@ def render_report(res=None, ev=None, units="m", figures=None, resolved=None, con
     out = ["<!doctype html><html lang='en'><head><meta charset='utf-8'>",
            f"<title>chimeline report {_e(tag)}</title><style>{CSS}</style></head><body>",
            f"<h1>Shell settlement report: {_e(tag)}</h1>",
-           f"<p class='sub'>survey date {_e(date or 'not given')} &middot; chimeline {__version__} &middot; generated "
-           f"{datetime.datetime.now(datetime.timezone.utc).strftime('%Y-%m-%d %H:%M UTC')}</p>",
+           f"<p class='sub'>survey date {_e(date or 'not given')} &middot; chimeline {__version__}</p>",
            f"<div class='caution'><b>Caution.</b> {_e(CAUTION)}</div>"]
     # ---- summary
     out.append("<h2>Summary</h2>")
@@ -166,8 +164,8 @@ def render_report(res=None, ev=None, units="m", figures=None, resolved=None, con
     out.append(f"<tr><td>config</td><td>{_e(config_source)}</td></tr>")
     if res is not None:
         out.append(f"<tr><td>seed</td><td>{res.config.seed}</td></tr>")
-        out.append("<tr><td>run time per stage (s)</td><td>" + ", ".join(f"{k} {v:.2f}" for k, v in res.timings.items())
-                   + "</td></tr>")
+    out.append("<tr><td>when, where, run time per stage</td><td>provenance.json beside this report (kept out of the "
+               "report so that the same input and config give the same report)</td></tr>")
     out.append("</table>")
     if resolved is not None:
         out.append("<details open><summary>resolved config</summary><pre>" + _e(yaml.safe_dump(resolved, sort_keys=False))

@@ -1,11 +1,18 @@
-"""Reruns: the earlier run's input and resolved config with --set changes, and a diff of keys and headline results."""
+"""Reruns: the earlier run's input and resolved config with --set changes, and a diff of keys and headline results.
+
+The earlier run's manifest names its scan by absolute path and SHA-256: a rerun finds the scan there, or at
+``scan`` (a moved copy), and refuses a file whose SHA-256 differs unless ``allow_different_input``.
+"""
 from __future__ import annotations
 
+import hashlib
+import os
 from pathlib import Path
 
+from ..core.hashing import sha256_file
 from ..core.mapping import flatten
-from ..errors import InputError
-from ..io.runfiles import CONFIG_YAML, RunFolder, read_run_folder
+from ..errors import InputError, OutputError
+from ..io.runfiles import CONFIG_YAML, MANIFEST_JSON, FolderInput, RunFolder, read_run_folder
 from .run import run_scan
 
 
@@ -24,20 +31,55 @@ def headline(rf: RunFolder) -> dict:
     return h
 
 
-def rerun(run_dir, out_dir, sets, progress=None):
-    """Run again; returns (changed keys [(key, old, new)], headline results [(name, old, new)])."""
-    before = read_run_folder(run_dir, need_config=True)
+def earlier_input(rf: RunFolder) -> tuple[str, str | None]:
+    """(path, SHA-256) of the earlier run's scan: from its manifest, or profile.json for older folders."""
+    m = rf.manifest.input("scan") if rf.manifest is not None else None
+    if m is not None:
+        return m.path, m.sha256
     try:
-        scan = Path(before.summary["input"]["path"])
+        inp = rf.summary["input"]
+        return str(inp["path"]), (str(inp["sha256"]) if inp.get("sha256") else None)
+    except (KeyError, TypeError, AttributeError) as exc:
+        raise InputError(f"{rf.path / 'profile.json'}: missing or malformed entry {exc}") from None
+
+
+
+
+def rerun(run_dir, out_dir, sets, progress=None, *, scan=None, allow_different_input: bool = False):
+    """Run again; returns (changed keys [(key, old, new)], headline results [(name, old, new)], notes [str])."""
+    before = read_run_folder(run_dir, need_config=True)
+    if os.path.realpath(run_dir) == os.path.realpath(out_dir):
+        raise OutputError(f"{out_dir}: is the run being rerun; it stays as the baseline of the comparison: choose a "
+                          f"new --out")
+    try:
         h0 = headline(before)
-    except (KeyError, TypeError) as exc:
+    except (KeyError, TypeError, ValueError, IndexError, AttributeError) as exc:
         raise InputError(f"{before.path / 'profile.json'}: missing or malformed entry {exc}") from None
-    if not scan.exists():
-        raise InputError(f"{before.path}: the earlier input {scan} is no longer there")
+    stored, stored_sha = earlier_input(before)
+    notes = []
+    if scan is None:
+        scan = Path(stored)
+        if not scan.exists():
+            sha = f" (SHA-256 {stored_sha[:16]}...)" if stored_sha else ""
+            raise InputError(f"{before.path}: the earlier input {stored} is no longer there; give the moved scan with "
+                             f"--scan PATH{sha}")
+    scan = Path(os.path.abspath(scan))
+    if not scan.is_file():
+        raise InputError(f"{scan}: scan file not found")
+    actual = sha256_file(scan)
+    if stored_sha and actual != stored_sha:
+        if not allow_different_input:
+            raise InputError(f"{scan}: its SHA-256 {actual[:16]}... differs from the earlier run's input "
+                             f"({stored_sha[:16]}...); pass --allow-different-input to rerun on a different scan")
+        notes.append(f"the scan differs from the earlier run's input (SHA-256 {actual[:16]}... instead of "
+                     f"{stored_sha[:16]}...)")
+    mp = before.path / MANIFEST_JSON
+    earlier = FolderInput("earlier_run", os.path.abspath(before.path),
+                          hashlib.sha256(mp.read_bytes()).hexdigest() if before.manifest is not None else None)
     res = run_scan(scan, out_dir, sets=sets, progress=progress, base_mapping=before.config,
-                   base_source=str(before.path / CONFIG_YAML))
+                   base_source=str(before.path / CONFIG_YAML), input_sha256=actual, extra_inputs=[earlier])
     a, b = flatten(before.config), flatten(res.resolved)
     changed = [(k, a.get(k), b.get(k)) for k in sorted(set(a) | set(b)) if a.get(k) != b.get(k)]
     h1 = headline(read_run_folder(out_dir))
     heads = [(k, h0.get(k, "-"), h1.get(k, "-")) for k in dict.fromkeys(list(h0) + list(h1))]
-    return changed, heads
+    return changed, heads, notes

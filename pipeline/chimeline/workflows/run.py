@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import dataclasses
 import logging
+import math
+import os
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -15,13 +17,14 @@ from typing import Callable, Optional
 
 import numpy as np
 
-from ..config import ChimelineConfig, load_config
+from ..config import ChimelineConfig, ProfileConfig, config_hash, load_config
 from ..core.hashing import sha256_file
 from ..core.rng import Purpose, stream
-from ..errors import InputError, StageError
+from ..errors import ConfigError, InputError, StageError
 from ..evaluate.results import Evaluation
-from ..io.atomic import check_writable, staging_dir, write_files
+from ..io.atomic import OutputSlot, checkpoint
 from ..io.readers import open_scan
+from ..io.runfiles import KIND_RUN, FolderInput, kind_guard, provenance_record, with_manifest
 from ..report.run_files import run_outputs
 from ..stages.frame import Frame, check_extent, make_frame
 from ..stages.junction import Junction, RingFilter, extract_junction
@@ -107,6 +110,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
         sp = strided.xyz[np.isfinite(strided.xyz).all(axis=1)]
         plot_parts.append(frame.to_local(sp))
         progress("stream", n_read, src.n_points)
+        checkpoint("stream")
     counts["face_keep_fraction"] = round(ring_filter.face_keep_fraction, 6)
     if n_read and n_bad / n_read > cfg.input.max_nonfinite_fraction:
         raise InputError(f"{scan}: {n_bad} of {n_read} points have NaN or infinite coordinates "
@@ -124,6 +128,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     junction = extract_junction(ring_pts, ring_sid, shell, frame, cfg.junction)
     timings["junction"] = time.perf_counter() - t
 
+    _check_bin_arc(cfg.profile, shell.radius)
     t = time.perf_counter()
     profile = bin_junction(junction, cfg.profile, shell.radius)
     timings["profile"] = time.perf_counter() - t
@@ -167,28 +172,42 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
                      plot_sample=plot_sample, ring_sample=rs, shell_sample=shell_sample)
 
 
-def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_mapping: dict | None = None,
-             base_source: str = "") -> RunResult:
-    """Resolve the config, process the scan, evaluate when the config has tank data, write every output.
+def _check_bin_arc(pc: ProfileConfig, radius: float) -> None:
+    """profile.bin_arc_length gives bins of arc / radius; they must lie in bin_width_deg's range on this shell."""
+    if pc.bin_arc_length is None:
+        return
+    md = ProfileConfig.__dataclass_fields__["bin_width_deg"].metadata
+    width = math.degrees(pc.bin_arc_length / radius)
+    if not md["min"] <= width <= md["max"]:
+        raise ConfigError(f"'profile.bin_arc_length' = {pc.bin_arc_length:g} m gives bins of {width:.3g} deg on this "
+                          f"shell (radius {radius:.3f} m); choose an arc giving {md['min']}-{md['max']} deg")
 
-    ``base_mapping`` (a resolved config read back from a run folder) stands in for ``config_path``.
+
+def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_mapping: dict | None = None,
+             base_source: str = "", input_sha256: str | None = None, extra_inputs=()) -> RunResult:
+    """Resolve the config, process the scan, evaluate when the config has tank data, publish the run folder.
+
+    ``base_mapping`` (a resolved config read back from a run folder) stands in for ``config_path``. The folder is
+    locked before any work and swapped in as a whole at the end (``io.atomic.OutputSlot``): a failure leaves the
+    earlier folder as it was. ``input_sha256`` skips hashing a scan the caller has hashed.
     """
     cfg, resolved, source = load_config(config_path, sets, mapping=base_mapping, mapping_source=base_source)
-    out_dir = Path(out_dir)
-    check_writable(out_dir)
-    t0 = time.perf_counter()
-    res = process_scan(scan, cfg, resolved, source, progress)
-    timings = dict(res.timings)
-    t = time.perf_counter()
-    sha = sha256_file(scan)
-    timings["hash"] = time.perf_counter() - t
-    t = time.perf_counter()
-    ev = evaluate_run(res)
-    if ev is not None:
-        timings["evaluate"] = time.perf_counter() - t
-    timings["total"] = time.perf_counter() - t0
-    res = dataclasses.replace(res, input_sha256=sha, evaluation=ev, timings=timings)
-    files = run_outputs(res)
-    with staging_dir(out_dir) as stage:
-        write_files(stage, files)
+    scan = Path(os.path.abspath(scan))
+    with OutputSlot(out_dir, guard=kind_guard(KIND_RUN), inputs=[scan]) as slot:
+        t0 = time.perf_counter()
+        res = process_scan(scan, cfg, resolved, source, progress)
+        timings = dict(res.timings)
+        t = time.perf_counter()
+        sha = input_sha256 or sha256_file(scan)
+        timings["hash"] = time.perf_counter() - t
+        t = time.perf_counter()
+        ev = evaluate_run(res)
+        if ev is not None:
+            timings["evaluate"] = time.perf_counter() - t
+        res = dataclasses.replace(res, input_sha256=sha, evaluation=ev, timings=timings)
+        files = run_outputs(res)
+        timings["total"] = time.perf_counter() - t0
+        inputs = [FolderInput("scan", str(scan), sha), *extra_inputs]
+        slot.publish(with_manifest(files, KIND_RUN, inputs, config_hash(resolved),
+                                   provenance_record("run", timings, recovered=slot.recovered)))
     return res
