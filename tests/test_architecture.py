@@ -18,7 +18,7 @@ import pytest
 
 PKG = Path(__file__).resolve().parents[1] / "pipeline" / "chimeline"
 
-LAYER = {"__init__": 0, "cli": 0, "workflows": 1, "report": 2, "evaluate": 3, "stages": 3, "synth": 3, "io": 4,
+LAYER = {"__main__": -1, "__init__": 0, "cli": 0, "workflows": 1, "report": 2, "evaluate": 3, "stages": 3, "synth": 3, "io": 4,
          "config": 5, "core": 6, "units": 6, "errors": 7, "notices": 7, "version": 7}
 
 #: third-party modules that may be imported inside functions (start-up time or optional)

@@ -6,7 +6,7 @@ from pathlib import Path
 import click
 
 from ..core.lazy import lazy_import
-from .common import out_option, reported
+from .common import Number, out_option, reported
 
 compare_wf = lazy_import("chimeline.workflows.compare")
 
@@ -14,7 +14,8 @@ compare_wf = lazy_import("chimeline.workflows.compare")
 @click.command()
 @click.argument("run_dirs", nargs=-1, required=True, type=click.Path(path_type=Path))
 @out_option()
-@click.option("--alpha", type=float, default=0.05, show_default=True, help="Significance level of the tests.")
+@click.option("--alpha", type=Number(1e-6, 0.5), default=0.05, show_default=True,
+              help="Significance level of the tests (1e-6 to 0.5).")
 def compare(run_dirs, out_dir, alpha):
     """QA: compare runs by noise (per run and station) and by profile.
 

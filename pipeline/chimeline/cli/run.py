@@ -6,7 +6,7 @@ from pathlib import Path
 import click
 
 from ..core.lazy import lazy_import
-from .common import Progress, config_option, out_option, reported, set_option, set_pairs
+from .common import Progress, config_option, out_option, reported, set_option, set_pairs, warn
 
 run_wf = lazy_import("chimeline.workflows.run")
 
@@ -23,7 +23,8 @@ def run(ctx, scan, config_path, sets, out_dir):
     Reads LAS/LAZ, PLY/PCD, E57, ASCII (.xyz .txt .pts .csv) or .npy. Writes
     profile.csv, profile.json, config.resolved.yaml and quicklook.png into OUT;
     with tank data in the config (shell_height, yield_strength) it also
-    evaluates the settlement. A failed run writes nothing.
+    evaluates the settlement. The folder is replaced as a whole when the run
+    succeeds; a failed or killed run leaves the earlier one as it was.
     """
     pairs = set_pairs(sets)
     progress = Progress(ctx.obj["quiet"])
@@ -33,4 +34,4 @@ def run(ctx, scan, config_path, sets, out_dir):
     click.echo(f"wrote {out_dir}/profile.csv ({len(res.profile.azimuth_deg)} bins, {100 * res.profile.coverage:.1f} % ok); "
                f"noise sigma {n.sigma * 1e3:.2f} mm [{n.ci[0] * 1e3:.2f}, {n.ci[1] * 1e3:.2f}]")
     for w in res.warnings:
-        click.echo(f"warning: {w}", err=True)
+        warn(w)
