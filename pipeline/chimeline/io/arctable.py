@@ -11,8 +11,8 @@ from pathlib import Path
 from typing import Optional
 
 import numpy as np
-import yaml
 
+from ..config import parse_yaml, read_yaml_text
 from ..errors import ConfigError
 from ..units import to_metres
 
@@ -52,16 +52,18 @@ def load_arc_table(path=None) -> ArcTable:
         p = Path(path)
         if not p.exists():
             raise ConfigError(f"evaluate.arc_table: {p}: file not found")
-        text = p.read_text()
+        text = read_yaml_text(p, "arc table")
         src = str(p)
     try:
-        data = yaml.safe_load(text)
+        data = parse_yaml(text, src)
         unit = data.get("units", "m")
         f = to_metres(unit)
         curves = []
         for i, r in enumerate(data["curves"]):
             arc = np.asarray(r["arc_length"], dtype=float) * f
             dep = np.asarray(r["permissible_depth"], dtype=float) * f
+            if arc.ndim != 1 or not (np.all(np.isfinite(arc)) and np.all(np.isfinite(dep))):
+                raise ValueError(f"curves[{i}]: arc_length and permissible_depth must be lists of finite numbers")
             if arc.shape != dep.shape or len(arc) < 2 or np.any(np.diff(arc) <= 0):
                 raise ValueError(f"curves[{i}]: arc_length must increase and match permissible_depth")
             curves.append(ArcCurve(roof=r.get("roof", "any"), d_min=float(r.get("diameter_min", 0)) * f,
@@ -69,6 +71,7 @@ def load_arc_table(path=None) -> ArcTable:
     except ConfigError:
         raise
     except Exception as exc:
-        raise ConfigError(f"{src}: not a valid permissible settlement table ({exc})") from None
+        raise ConfigError(f"{src}: not a valid permissible settlement table ({type(exc).__name__}: "
+                          f"{str(exc)[:120]})") from None
     return ArcTable(illustrative=bool(data.get("illustrative", False)), title=data.get("title", ""), source=src,
                     curves=tuple(curves))

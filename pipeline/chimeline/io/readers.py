@@ -266,6 +266,8 @@ def open_scan(path) -> ScanSource:
             raise InputError(f"{path}: not a readable .npy array ({_short(exc)})") from None
         if arr.ndim != 2 or arr.shape[1] < 3:
             raise InputError(f"{path}: .npy must be an (n, 3+) array of x y z [...], got shape {arr.shape}")
+        if arr.dtype.kind not in "fiu":
+            raise InputError(f"{path}: .npy must hold numbers (x y z [...]), got dtype {arr.dtype}")
         sid = arr[:, 4].astype(np.int64) if arr.shape[1] >= 5 else None
         return ArraySource(path, np.ascontiguousarray(arr[:, :3], dtype=np.float64), sid)
     if ext == ".e57":
@@ -289,12 +291,49 @@ def load_open3d():
     return open3d
 
 
+_PLY_SIZES = {"char": 1, "uchar": 1, "int8": 1, "uint8": 1, "short": 2, "ushort": 2, "int16": 2, "uint16": 2,
+              "int": 4, "uint": 4, "int32": 4, "uint32": 4, "float": 4, "float32": 4, "double": 8, "float64": 8}
+
+
+def _ply_vertex_count(path) -> Optional[int]:
+    """The vertex count a PLY header declares; a binary file too short for it is refused (truncated)."""
+    with open(path, "rb") as fh:
+        head = b""
+        while not head.endswith(b"end_header\n") and not head.endswith(b"end_header\r\n") and len(head) < 65536:
+            line = fh.readline()
+            if not line:
+                break
+            head += line
+    text = head.decode("ascii", errors="replace")
+    if not text.startswith("ply") or "end_header" not in text:
+        raise InputError(f"{path}: not a PLY file (no 'ply' ... 'end_header' header)")
+    fmt = re.search(r"^format (\w+)", text, re.M)
+    elements = re.findall(r"^element (\w+) (\d+)", text, re.M)
+    counts = dict(elements)
+    if "vertex" not in counts:
+        raise InputError(f"{path}: the PLY header declares no vertex element")
+    n = int(counts["vertex"])
+    if fmt and fmt.group(1).startswith("binary") and elements and elements[0][0] == "vertex":
+        block = text.split("element vertex", 1)[1].split("element ", 1)[0]
+        props = re.findall(r"^property (\w+) \w+", block, re.M)
+        if "list" not in props and all(t in _PLY_SIZES for t in props):
+            need = len(head) + n * sum(_PLY_SIZES[t] for t in props)
+            have = path.stat().st_size
+            if have < need:
+                raise InputError(f"{path}: truncated: the header declares {n} points ({need} bytes) but the file has "
+                                 f"{have} bytes")
+    return n
+
+
 def _read_open3d(path):
     o3d = load_open3d()
+    declared = _ply_vertex_count(path) if path.suffix.lower() == ".ply" else None
     pc = o3d.io.read_point_cloud(str(path))
     xyz = np.asarray(pc.points, dtype=np.float64)
     if len(xyz) == 0:
         raise InputError(f"{path}: no points could be read (empty or not a point cloud)")
+    if declared is not None and len(xyz) != declared:
+        raise InputError(f"{path}: read {len(xyz)} of the {declared} points the header declares (truncated or damaged)")
     sid = None
     if path.suffix.lower() == ".ply":
         sid = _ply_station(path, len(xyz))
