@@ -21,13 +21,13 @@ import logging
 import math
 import os
 import sys
-import tempfile
 from contextlib import contextmanager
 from pathlib import Path
 
 import click
 
 from ..config import parse_set_pairs
+from ..core.native import captured_native_output
 from ..errors import ChimelineError, OutputError, clip_repr
 from ..io.atomic import check_target
 
@@ -125,31 +125,20 @@ def native_output_to_log():
     if not real:
         yield
         return
+    old = sys.stdout, sys.stderr
     sys.stdout.flush()
     sys.stderr.flush()
-    saved = os.dup(1), os.dup(2)
-    old = sys.stdout, sys.stderr
-    sink = tempfile.TemporaryFile()
-    sys.stdout = open(os.dup(saved[0]), "w", encoding=old[0].encoding, errors="replace", buffering=1)
-    sys.stderr = open(os.dup(saved[1]), "w", encoding=old[1].encoding, errors="backslashreplace", buffering=1)
-    os.dup2(sink.fileno(), 1)
-    os.dup2(sink.fileno(), 2)
+    sys.stdout = open(os.dup(1), "w", encoding=old[0].encoding, errors="replace", buffering=1)
+    sys.stderr = open(os.dup(2), "w", encoding=old[1].encoding, errors="backslashreplace", buffering=1)
+    text = []
     try:
-        yield
+        with captured_native_output() as text:
+            yield
     finally:
-        sys.stdout.flush()
-        sys.stderr.flush()
-        os.dup2(saved[0], 1)
-        os.dup2(saved[1], 2)
-        for fd in saved:
-            os.close(fd)
         sys.stdout.close()
         sys.stderr.close()
         sys.stdout, sys.stderr = old
-        sink.seek(0)
-        text = sink.read(1 << 16).decode("utf-8", "replace")
-        sink.close()
-        for line in text.splitlines():
+        for line in "".join(text).splitlines():
             if line.strip():
                 log.debug("library output: %s", line.rstrip())
 

@@ -15,6 +15,7 @@ from typing import Iterator, Optional
 
 import numpy as np
 
+from ..core.native import captured_native_output
 from ..errors import DependencyError, InputError
 
 log = logging.getLogger(__name__)
@@ -322,13 +323,67 @@ def _ply_vertex_count(path) -> Optional[int]:
             if have < need:
                 raise InputError(f"{path}: truncated: the header declares {n} points ({need} bytes) but the file has "
                                  f"{have} bytes")
+    elif fmt and fmt.group(1) == "ascii":  # open3d fills the points of missing lines with garbage: count them
+        _check_lines(path, len(head), n)
+    return n
+
+
+def _check_lines(path, offset: int, n: int) -> None:
+    """An ASCII point file must have at least ``n`` lines after its header (``offset`` bytes)."""
+    lines = 0
+    with open(path, "rb") as fh:
+        fh.seek(offset)
+        tail = b"\n"
+        for block in iter(lambda: fh.read(1 << 24), b""):
+            lines += block.count(b"\n")
+            tail = block[-1:]
+    lines += tail != b"\n"
+    if lines < n:
+        raise InputError(f"{path}: truncated: the header declares {n} points but the file has {lines} data lines")
+
+
+def _pcd_point_count(path) -> Optional[int]:
+    """The point count a PCD header declares; a file too short for it is refused (open3d reads garbage)."""
+    head, fields = b"", {}
+    with open(path, "rb") as fh:
+        while len(head) < 65536:
+            line = fh.readline()
+            if not line:
+                break
+            head += line
+            words = line.decode("ascii", errors="replace").split()
+            if words and not words[0].startswith("#"):
+                fields[words[0].upper()] = words[1:]
+            if words and words[0].upper() == "DATA":
+                break
+    try:
+        n = int(fields["POINTS"][0])
+        data = fields["DATA"][0].lower()
+    except (KeyError, IndexError, ValueError):
+        raise InputError(f"{path}: not a PCD file (its header lacks POINTS or DATA)") from None
+    if data == "ascii":
+        _check_lines(path, len(head), n)
+    elif data == "binary":
+        try:
+            size = sum(int(a) * int(b) for a, b in zip(fields["SIZE"], fields.get("COUNT", ["1"] * len(fields["SIZE"]))))
+        except (KeyError, ValueError):
+            raise InputError(f"{path}: not a PCD file (bad SIZE or COUNT line)") from None
+        if path.stat().st_size < len(head) + n * size:
+            raise InputError(f"{path}: truncated: the header declares {n} points ({len(head) + n * size} bytes) but "
+                             f"the file has {path.stat().st_size} bytes")
     return n
 
 
 def _read_open3d(path):
     o3d = load_open3d()
-    declared = _ply_vertex_count(path) if path.suffix.lower() == ".ply" else None
-    pc = o3d.io.read_point_cloud(str(path))
+    declared = _ply_vertex_count(path) if path.suffix.lower() == ".ply" else _pcd_point_count(path)
+    with captured_native_output() as said:  # open3d reports a failed read only by printing (RPly, PCD reader)
+        pc = o3d.io.read_point_cloud(str(path))
+    said = " ".join(line.strip() for line in "".join(said).splitlines() if line.strip())
+    if said:
+        log.debug("open3d: %s", said)
+    if re.search(r"fail|error", said, re.I):
+        raise InputError(f"{path}: cannot be read ({said[:160]})")
     xyz = np.asarray(pc.points, dtype=np.float64)
     if len(xyz) == 0:
         raise InputError(f"{path}: no points could be read (empty or not a point cloud)")
