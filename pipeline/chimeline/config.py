@@ -319,8 +319,9 @@ def parse_yaml(text: str, source: str, *, text_if_not_yaml: bool = False):
     """
     if len(text) > MAX_YAML_BYTES:
         raise ConfigError(f"{source}: larger than {MAX_YAML_BYTES // 1024} KiB; a config or scene is a few KiB")
-    loader = _BoundedLoader(text)
+    loader = None
     try:
+        loader = _BoundedLoader(text)  # its reader already refuses some characters
         node = loader.get_single_node()
         if node is None:
             return None
@@ -337,7 +338,8 @@ def parse_yaml(text: str, source: str, *, text_if_not_yaml: bool = False):
     except (ValueError, TypeError, OverflowError, RecursionError) as exc:  # e.g. a 5000-digit integer
         raise ConfigError(f"{source}: a value cannot be read ({type(exc).__name__}: {str(exc)[:120]})") from None
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
 
 
 def read_yaml_text(path: Path, what: str = "config") -> str:
@@ -346,7 +348,7 @@ def read_yaml_text(path: Path, what: str = "config") -> str:
     if not path.exists():
         raise ConfigError(f"{path}: {what} file not found")
     if not path.is_file():
-        raise ConfigError(f"{path}: is a folder, not a {what} file")
+        raise ConfigError(f"{path}: is a folder, not a file ({what})")
     try:
         with open(path, "rb") as fh:
             raw = fh.read(MAX_YAML_BYTES + 1)

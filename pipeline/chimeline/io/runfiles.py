@@ -359,15 +359,15 @@ class _Vanished(Exception):
 def read_run_folder(run_dir, *, need_config: bool = False) -> RunFolder:
     """A run folder, every file read from the same folder even if another command replaces it meanwhile."""
     d = Path(run_dir)
-    for _ in range(3):
+    for _ in range(2):
         try:
-            return _read_run_folder(d, need_config)
+            return _read_run_folder(d, need_config, last=False)
         except _Vanished:
             continue
-    raise InputError(f"{d}: the folder kept changing while being read (another command is writing it); try again")
+    return _read_run_folder(d, need_config, last=True)
 
 
-def _read_run_folder(d: Path, need_config: bool) -> RunFolder:
+def _read_run_folder(d: Path, need_config: bool, last: bool) -> RunFolder:
     if not d.is_dir() or not ((d / PROFILE_JSON).exists() or (d / MANIFEST_JSON).exists()):
         raise InputError(f"{d}: not a chimeline run folder (no {PROFILE_JSON})")
     try:
@@ -381,8 +381,11 @@ def _read_run_folder(d: Path, need_config: bool) -> RunFolder:
             try:
                 return _read_bytes(Path(name), dir_fd) if dir_fd is not None else _read_bytes(d / name)
             except FileNotFoundError:
+                if name in listed and not last:
+                    raise _Vanished() from None  # replaced while we read: read the new folder
                 if name in listed:
-                    raise _Vanished() from None
+                    raise InputError(f"{d}: incomplete run folder: {name}, listed in {MANIFEST_JSON}, is missing") \
+                        from None
                 if required:
                     raise InputError(f"{d}: not a complete run folder (no {name})") from None
                 return None
