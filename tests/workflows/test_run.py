@@ -1,12 +1,15 @@
 """chimeline run as a workflow: files written, reproducibility, flagged coverage, NaN handling."""
 import json
+import os
+import subprocess
+import sys
 
 import laspy
 import numpy as np
 import pytest
 import yaml
 
-from tests.helpers import assert_fails, invoke
+from tests.helpers import ROOT, assert_fails, invoke
 
 
 def test_run_writes_profile_and_resolved_config(tmp_path, small_scan):
@@ -64,19 +67,24 @@ def test_low_coverage_refused_or_flagged(tmp_path, simulate):
 
 
 def test_same_input_and_config_give_the_same_bytes(tmp_path, small_scan, monkeypatch):
-    """Two runs of the same scan and config, the second from another working folder with a relative path: every
-    file is byte-identical (CSV, JSON, YAML, PNG, report.html, manifest.json) except the declared provenance record."""
+    """The same scan and config three times: in a fresh process, then twice in this one (state left by earlier
+    figures once changed quicklook.png), the last from another working folder with a relative path. Every file is
+    byte-identical (CSV, JSON, YAML, PNG, report.html, manifest.json) except the declared provenance record."""
     scan, _ = small_scan
     tank = ["--set", "tank.shell_height=6", "--set", "tank.yield_strength=250 MPa"]
-    invoke(["-q", "run", scan, "--out", tmp_path / "a"] + tank)
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(ROOT / "pipeline"), os.environ.get("PYTHONPATH", "")]))
+    subprocess.run([sys.executable, "-m", "chimeline", "-q", "run", str(scan), "--out", str(tmp_path / "a")] + tank,
+                   check=True, env=env, capture_output=True)
+    invoke(["-q", "run", scan, "--out", tmp_path / "b"] + tank)
     monkeypatch.chdir(scan.parent)
-    invoke(["-q", "run", scan.name, "--out", tmp_path / "b"] + tank)
+    invoke(["-q", "run", scan.name, "--out", tmp_path / "c"] + tank)
     files = sorted(p.relative_to(tmp_path / "a") for p in (tmp_path / "a").rglob("*") if p.is_file())
-    assert files == sorted(p.relative_to(tmp_path / "b") for p in (tmp_path / "b").rglob("*") if p.is_file())
-    assert {"report.html", "manifest.json", "provenance.json", "evaluation.json", "plots/profile.png"} <= {
-        str(f) for f in files}
-    differ = [str(f) for f in files if (tmp_path / "a" / f).read_bytes() != (tmp_path / "b" / f).read_bytes()]
-    assert differ == ["provenance.json"]
+    assert {"report.html", "manifest.json", "provenance.json", "evaluation.json", "plots/profile.png",
+            "quicklook.png"} <= {str(f) for f in files}
+    for other in ("b", "c"):
+        assert files == sorted(p.relative_to(tmp_path / other) for p in (tmp_path / other).rglob("*") if p.is_file())
+        differ = [str(f) for f in files if (tmp_path / "a" / f).read_bytes() != (tmp_path / other / f).read_bytes()]
+        assert differ == ["provenance.json"], other
     manifest = json.loads((tmp_path / "a" / "manifest.json").read_text())
     assert set(manifest["files"]) == {str(f) for f in files} - {"manifest.json", "provenance.json"}
     assert manifest["inputs"][0]["path"] == str(scan) and manifest["kind"] == "run"
