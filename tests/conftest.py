@@ -35,3 +35,11 @@ def simulate(tmp_path_factory):
 @pytest.fixture(scope="module")
 def small_scan(simulate):
     return simulate("small_tank.yaml", 77)
+
+
+# property-based tests (hypothesis): bounded, reproducible (derandomized), no example database in the tree
+from hypothesis import HealthCheck, settings  # noqa: E402
+
+settings.register_profile("chimeline", max_examples=60, deadline=None, derandomize=True, database=None,
+                          suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
+settings.load_profile("chimeline")

@@ -335,7 +335,7 @@ def parse_yaml(text: str, source: str, *, text_if_not_yaml: bool = False):
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         what = "YAML refused" if isinstance(exc, _Refused) else "not valid YAML"
         raise ConfigError(f"{source}: {what}{where}: {str(problem)[:160]}") from None
-    except (ValueError, TypeError, OverflowError, RecursionError) as exc:  # e.g. a 5000-digit integer
+    except Exception as exc:  # PyYAML's constructors raise ValueError (5000-digit int), IndexError ('!!float ')...
         raise ConfigError(f"{source}: a value cannot be read ({type(exc).__name__}: {str(exc)[:120]})") from None
     finally:
         if loader is not None:

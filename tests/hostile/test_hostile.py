@@ -135,6 +135,8 @@ VALUE_CASES = [
     run_args("--set", "x={a: 1, a: 2}", id="set-duplicate-key", phrase="duplicate key"),
     run_args("--set", "tank.tag=" + "[" + ",".join(["1"] * 50) + "]", id="set-list-for-string", phrase="'tank.tag'"),
     run_args("--set", "profile.bin_widht_deg=1", id="set-typo", phrase="did you mean 'profile.bin_width_deg'"),
+    run_args("--set", "tank.tag=!!float", id="set-empty-float-tag", phrase="cannot be read"),
+    run_args("--set", "seed=!!int 0b", id="set-empty-binary-int", phrase="cannot be read"),
     run_args("--set", "shell.min_radius=50", "--set", "shell.max_radius=40", id="set-cross-key", phrase="min_radius"),
 ]
 
@@ -188,6 +190,12 @@ def _las_cut(fraction):
     return lambda p: Path(p["scan"]).read_bytes()[: int(Path(p["scan"]).stat().st_size * fraction)]
 
 
+def _patch(p, offset, new: bytes):
+    b = bytearray(Path(p["scan"]).read_bytes())
+    b[offset:offset + len(new)] = new
+    return bytes(b)
+
+
 def _ply(n, props, body, fmt="binary_little_endian"):
     head = f"ply\nformat {fmt} 1.0\nelement vertex {n}\n" + "".join(f"property {t} {k}\n" for t, k in props)
     return (head + "end_header\n").encode() + body
@@ -219,7 +227,11 @@ SCAN_CASES = [
     scan_case("las-half", "s.las", _las_cut(0.5), "truncated"),
     scan_case("las-90", "s.las", _las_cut(0.9), "truncated"),
     scan_case("las-header-only", "s.las", _las_cut(0.0002), "truncated: the header says"),
-    scan_case("las-garbage", "s.las", bytes(_rng.integers(0, 256, 4000, dtype=np.uint8)), "not a readable LAS"),
+    scan_case("las-garbage", "s.las", bytes(_rng.integers(0, 256, 4000, dtype=np.uint8)), "not a LAS/LAZ file"),
+    scan_case("las-vlr-count", "s.las", lambda p: _patch(p, 100, (16_056_320).to_bytes(4, "little")),
+              "variable length records cannot fit"),
+    scan_case("las-point-offset", "s.las", lambda p: _patch(p, 96, (10**9).to_bytes(4, "little")),
+              "corrupt LAS header"),
     scan_case("ply-binary-cut", "s.ply", _ply(2000, XYZ3, _pts.astype("<f8").tobytes()[:20000]), "truncated"),
     scan_case("ply-station-cut", "s.ply", _ply(2000, XYZ3 + [("ushort", "station")],
                                                np.zeros(1000, "<f8,<f8,<f8,<u2").tobytes()), "truncated"),

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import logging
 import re
+import struct
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterator, Optional
@@ -80,11 +81,39 @@ def wkt_units(wkt: str) -> Optional[str]:
     return None
 
 
+def check_las_header(path: Path) -> None:
+    """Refuse a LAS/LAZ header whose record counts cannot fit in the file, before laspy reads it.
+
+    A damaged count of variable length records made laspy read millions of records one by one (minutes).
+    The fixed fields (ASPRS LAS 1.0-1.4): header size at byte 94, offset to the point data at 96, number of
+    VLRs at 100 (54-byte record headers); LAS 1.4 also: start of the first EVLR at 235, number of EVLRs at 243
+    (60-byte record headers).
+    """
+    size = path.stat().st_size
+    with open(path, "rb") as fh:
+        head = fh.read(375)
+    if len(head) < 227 or head[:4] != b"LASF":
+        raise InputError(f"{path}: not a LAS/LAZ file (no 'LASF' header)")
+    header_size, offset, n_vlr = struct.unpack_from("<HII", head, 94)
+    if not 227 <= header_size <= offset <= size:
+        raise InputError(f"{path}: corrupt LAS header: header size {header_size} and point data offset {offset} do "
+                         f"not fit a file of {size} bytes")
+    if n_vlr * 54 > offset - header_size:
+        raise InputError(f"{path}: corrupt LAS header: {n_vlr} variable length records cannot fit in the "
+                         f"{offset - header_size} bytes before the point data")
+    if head[24:26] >= b"\x01\x04" and len(head) >= 247:
+        start, n_evlr = struct.unpack_from("<QI", head, 235)
+        if n_evlr and (start < offset or start + n_evlr * 60 > size):
+            raise InputError(f"{path}: corrupt LAS header: {n_evlr} extended records at byte {start} do not fit a file "
+                             f"of {size} bytes")
+
+
 class LasSource(ScanSource):
     def __init__(self, path: Path):
         import laspy
 
         self.path = path
+        check_las_header(path)
         try:
             with laspy.open(path) as r:
                 h = r.header
