@@ -585,7 +585,7 @@ def test_hostile_input_is_refused_with_one_line_and_nothing_written(case, templa
 
 PROCESS_CASES = [c for c in ALL_CASES if c.id in {
     "scan-ply-ascii-word", "scan-las-half", "config-alias-bomb-typed-key", "synth-points-nan", "compare-sigma-zero",
-    "rerun-scan-moved", "usage-no-out"}]
+    "rerun-scan-moved", "usage-no-out", "scan-csv-header-only"}]  # the last one raises a numpy UserWarning
 
 
 @pytest.mark.parametrize("case", PROCESS_CASES, ids=lambda c: c.id)

@@ -35,7 +35,7 @@ class OvalityScene:
 @dataclass(frozen=True)
 class TankScene:
     tag: str = "T-1"
-    center: tuple[float, float] = (0.0, 0.0)
+    center: tuple[float, float] = rng_field((0.0, 0.0), -1e4, 1e4, doc="m, in the scene frame")
     diameter: float = rng_field(30.0, 2.0, 120.0, doc="outer diameter of the bottom course, m")
     height: float = rng_field(12.0, 2.0, 30.0, doc="shell height, m")
     base_elevation: float = rng_field(0.45, -5.0, 5.0, doc="unsettled junction elevation, m")
@@ -82,7 +82,7 @@ class SettlementScene:
 @dataclass(frozen=True)
 class GroundScene:
     elevation: float = rng_field(0.0, -10.0, 10.0, doc="at the tank centre, m")
-    slope: tuple[float, float] = (0.0, 0.0)
+    slope: tuple[float, float] = rng_field((0.0, 0.0), -1.0, 1.0, doc="fall per unit run along x and y")
     roughness: float = rng_field(0.004, 0.0, 0.05, doc="amplitude of the ground undulation, m")
 
 
@@ -107,14 +107,14 @@ class NozzleScene:
 
 @dataclass(frozen=True)
 class PoleScene:
-    position: tuple[float, float] = (0.0, 0.0)
+    position: tuple[float, float] = rng_field((0.0, 0.0), -1e4, 1e4, doc="m")
     diameter: float = rng_field(0.2, 0.02, 2.0)
     height: float = rng_field(6.0, 0.5, 30.0)
 
 
 @dataclass(frozen=True)
 class BushScene:
-    position: tuple[float, float] = (0.0, 0.0)
+    position: tuple[float, float] = rng_field((0.0, 0.0), -1e4, 1e4, doc="m")
     radius: float = rng_field(0.4, 0.05, 3.0)
 
 
@@ -163,8 +163,8 @@ class StationParams:
 
 @dataclass(frozen=True)
 class StationScene:
-    position: Optional[tuple[float, float]] = None
-    azimuth_deg: Optional[float] = None
+    position: Optional[tuple[float, float]] = rng_field(None, -1e4, 1e4, doc="m")
+    azimuth_deg: Optional[float] = rng_field(None, -360.0, 360.0)
     distance_from_shell: float = rng_field(10.0, 1.0, 200.0)
     overrides: dict = field(default_factory=dict)
 
@@ -182,7 +182,8 @@ class StationsScene:
 class OutputScene:
     format: str = choice_field("las14", ("las14", "las12", "laz", "ply", "xyz", "npy"))
     units: str = choice_field("m", ("m", "ft", "us_ft"))
-    georef_offset: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    georef_offset: tuple[float, float, float] = rng_field((0.0, 0.0, 0.0), -1e8, 1e8, doc="added to the written "
+                                                                                            "coordinates, output units")
     chunk_rays: int = rng_field(2_000_000, 10_000, 50_000_000)
 
 
