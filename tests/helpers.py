@@ -82,3 +82,14 @@ def chromium():
         if p:
             return p
     return None
+
+
+def make_immutable(path, on: bool = True) -> bool:
+    """chattr +i (or -i): a folder even root cannot write into (ext4 and others); False where chattr cannot."""
+    import subprocess
+
+    try:
+        subprocess.run(["chattr", "+i" if on else "-i", str(path)], check=True, capture_output=True)
+        return True
+    except (OSError, subprocess.CalledProcessError):
+        return False

@@ -24,7 +24,7 @@ from click.testing import CliRunner
 
 from chimeline.config import ChimelineConfig
 from chimeline.io.atomic import FolderLock
-from tests.helpers import ROOT
+from tests.helpers import ROOT, make_immutable
 from tests.hostile.conftest import TANK, survey_rows
 
 
@@ -443,15 +443,9 @@ def sy_case(name, *extra, phrase="", target="scans", argv=None, **kw):
 
 
 SYNTH_CASES = [
-    sy_case("points-zero", "--points", "0", phrase="--points"),
-    sy_case("points-negative", "--points", "-5", phrase="--points"),
-    sy_case("points-nan", "--points", "nan", phrase="--points"),
-    sy_case("points-inf", "--points", "inf", phrase="--points"),
-    sy_case("points-1e13", "--points", "1e13", phrase="--points"),
-    sy_case("points-word", "--points", "many", phrase="--points"),
-    sy_case("density-zero", "--density", "0", phrase="--density"),
-    sy_case("density-nan", "--density", "nan", phrase="--density"),
-    sy_case("seed-negative", "--seed", "-1", phrase="--seed"),
+    *[sy_case(f"{opt}={v}", f"--{opt}", v, phrase=f"--{opt}") for opt, values in (
+        ("points", ("0", "-5", "nan", "inf", "1e13", "many")), ("density", ("0", "nan")), ("seed", ("-1",)))
+      for v in values],
     sy_case("date", "--set", "survey_date=2026-13-45", phrase="'survey_date'"),
     sy_case("diameter", "--set", "tank.diameter=1e9", phrase="'tank.diameter'"),
     sy_case("format", "--set", "output.format=e57", phrase="'output.format'"),
@@ -477,6 +471,14 @@ def _lock(p):
     p["cleanup"].append(lock.release)
 
 
+def _read_only(p):
+    ro = Path(p["dir"]) / "ro"
+    ro.mkdir()
+    if not make_immutable(ro):
+        pytest.skip("chattr +i is not available here")
+    p["cleanup"].append(lambda: make_immutable(ro, on=False))
+
+
 def _symlink(p):
     os.symlink(p["out"], Path(p["dir"]) / "link")
 
@@ -492,6 +494,10 @@ OUT_CASES = [
     Case(argv=("run", "{scan}", "--out", "{dir}/afile"), id="out-is-a-file", files={"afile": "x"}, phrase="file"),
     Case(argv=("run", "{scan}", "--out", "{dir}/mine"), id="out-foreign-folder", files={"mine/notes.txt": "keep"},
          phrase="not a chimeline folder"),
+    Case(argv=("run", "{scan}", "--out", "{dir}/ro/run"), id="out-under-a-read-only-folder", prepare=_read_only,
+         phrase="not writable"),
+    Case(argv=("synth", "{scene}", "--out", "{dir}/ro/scans"), id="synth-out-under-a-read-only-folder",
+         target="none", prepare=_read_only, phrase="not writable"),
     run_args(target="evaluation", id="out-an-evaluation-folder", phrase="writes a run folder"),
     run_args(target="compare", id="out-a-compare-folder", phrase="writes a run folder"),
     Case(argv=("run", "{scan}", "--out", "{dir}/link"), id="out-symlink", prepare=_symlink, phrase="symbolic link"),
@@ -584,7 +590,7 @@ def test_hostile_input_is_refused_with_one_line_and_nothing_written(case, templa
 
 
 PROCESS_CASES = [c for c in ALL_CASES if c.id in {
-    "scan-ply-ascii-word", "scan-las-half", "config-alias-bomb-typed-key", "synth-points-nan", "compare-sigma-zero",
+    "scan-ply-ascii-word", "scan-las-half", "config-alias-bomb-typed-key", "synth-points=nan", "compare-sigma-zero",
     "rerun-scan-moved", "usage-no-out", "scan-csv-header-only"}]  # the last one raises a numpy UserWarning
 
 

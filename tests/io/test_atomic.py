@@ -15,7 +15,7 @@ from chimeline.errors import OutputError
 from chimeline.io import atomic
 from chimeline.io.atomic import FolderLock, OutputSlot, check_target, recover_leftovers
 from chimeline.io.runfiles import KIND_EVALUATION, KIND_RUN, FolderInput, kind_guard, with_manifest
-from tests.helpers import ROOT, invoke
+from tests.helpers import ROOT, invoke, make_immutable
 
 
 def snapshot(folder: Path) -> dict:
@@ -306,3 +306,36 @@ def test_two_concurrent_runs_leave_one_complete_run(earlier_run, tmp_path):
     js = json.loads((out / "profile.json").read_text())
     winner = [w for w, c in zip((1.0, 3.0), codes) if c == 0]
     assert js["profile"]["bin_width_deg"] in winner
+
+
+def test_an_earlier_run_with_an_undeletable_part_is_still_replaced(tmp_path, caplog):
+    """The earlier run's plots/ cannot be deleted (immutable): the new run is swapped in complete anyway, and the
+    old folder is kept aside with a warning (file-by-file moves once failed half-way here)."""
+    out = tmp_path / "a"
+    with OutputSlot(out) as slot:
+        slot.publish(_files("one", **{"plots/old.png": b"old"}))
+    if not make_immutable(out / "plots"):
+        pytest.skip("chattr +i is not available here")
+    try:
+        with OutputSlot(out) as slot:
+            slot.publish(_files("two"))
+        assert complete(out) and not (out / "plots" / "old.png").exists()
+        assert "could not be deleted" in caplog.text
+        kept = [n for n in debris(out) if n.endswith("chimeline-tmp")]
+        assert len(kept) == 1 and (tmp_path / kept[0] / "plots" / "old.png").exists()
+    finally:
+        for p in tmp_path.rglob("plots"):
+            make_immutable(p, on=False)
+
+
+def test_a_folder_nobody_may_write_into_is_refused_with_nothing_left(tmp_path):
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    if not make_immutable(ro):
+        pytest.skip("chattr +i is not available here")
+    try:
+        with pytest.raises(OutputError, match="output folder is not writable"):
+            OutputSlot(ro / "sub" / "run").__enter__()
+        assert list(ro.iterdir()) == []
+    finally:
+        make_immutable(ro, on=False)

@@ -20,6 +20,7 @@ from __future__ import annotations
 import ctypes
 import errno
 import json
+import logging
 import os
 import re
 import secrets
@@ -41,6 +42,7 @@ except ImportError:  # not POSIX: the O_EXCL lock file below
 #: what chimeline adds to a target's name for its staging folders and lock (".NAME.XXXXXXXX.chimeline-tmp")
 SIBLING_EXTRA = len("..12345678.chimeline-tmp")
 _KILL_ENV = "CHIMELINE_KILL_AT"
+log = logging.getLogger(__name__)
 
 
 def checkpoint(name: str) -> None:
@@ -246,7 +248,8 @@ def _leftover_pattern(target: Path):
     return re.compile(rf"\.{re.escape(target.name)}\.[0-9a-f]{{8}}\.chimeline-(tmp|old)")
 
 
-def _remove(path: Path) -> None:
+def _remove(path: Path) -> bool:
+    """Delete a file or folder tree; False if some of it could not be deleted (read-only or immutable parts)."""
     if path.is_dir() and not path.is_symlink():
         shutil.rmtree(path, ignore_errors=True)
     else:
@@ -254,6 +257,13 @@ def _remove(path: Path) -> None:
             path.unlink()
         except OSError:
             pass
+    return not os.path.lexists(path)
+
+
+def _remove_old(old: Path, target: Path) -> None:
+    if not _remove(old):
+        log.warning("the earlier folder %s was replaced but parts of it could not be deleted; it is kept as %s "
+                    "(delete it by hand)", target.name, old)
 
 
 def recover_leftovers(target: Path) -> list[str]:
@@ -300,13 +310,13 @@ def swap_in(stage: Path, target: Path) -> None:
         return
     if exchange(stage, target):
         checkpoint("swapped")  # the old folder now sits at the staging name
-        _remove(stage)
+        _remove_old(stage, target)
         return
     old = _sibling(target, "old")
     os.rename(target, old)
     checkpoint("swap-half")
     os.rename(stage, target)
-    _remove(old)
+    _remove_old(old, target)
 
 
 def _make_parents(folder: Path) -> list[Path]:
