@@ -37,6 +37,18 @@ def small_scan(simulate):
     return simulate("small_tank.yaml", 77)
 
 
+@pytest.fixture(scope="session")
+def small_reference(simulate):
+    """(scan path, RunResult) of small_tank.yaml seed 91 with the default config: the reference of the reader
+    round trips, computed once per session."""
+    from chimeline.config import load_config
+    from chimeline.workflows.run import process_scan
+
+    scan, _ = simulate("small_tank.yaml", 91)
+    cfg, resolved, s = load_config()
+    return scan, process_scan(scan, cfg, resolved, s)
+
+
 # property-based tests (hypothesis): bounded, reproducible (derandomized), no example database in the tree
 from hypothesis import HealthCheck, settings  # noqa: E402
 

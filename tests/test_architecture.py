@@ -90,6 +90,8 @@ def scan_imports(root: Path):
 def layer_of(mod: str) -> tuple[str, int]:
     parts = mod.split(".")
     name = parts[1] if len(parts) > 1 else "__init__"
+    if name == "__main__":  # python -m chimeline: the entry point sits with __init__ at the top
+        name = "__init__"
     return name, LAYER[name]
 
 

@@ -31,6 +31,8 @@ BAD_VALUES = [
     ("junction.height_gate", 2), ("junction.sector_deg", 0.1), ("profile.bin_width_deg", 0), ("profile.min_points", 0),
     ("profile.reject_k", 1), ("profile.on_low_coverage", "ignore"), ("profile.station_leveling", "yes"),
     ("noise.confidence", 1.5), ("noise.pair_max_gap_deg", 0), ("output.length_unit", "cubit"), ("output.plots", "yes"),
+    ("input.skip_withheld", "yes"), ("input.skip_classes", "noise"), ("input.columns.x", -1),
+    ("input.columns.station", 1.5), ("input.units_priority", "both"),
 ]
 
 
@@ -72,7 +74,7 @@ def test_every_ranged_key_rejects_out_of_range(key, value):
 
 def test_generated_cases_cover_the_stage_sections():
     keys = {k.split(".")[0] for k, _ in _generated_bad_values()}
-    assert {"input", "frame", "shell", "junction", "profile", "noise", "output", "evaluate"} <= keys
+    assert {"input", "frame", "shell", "junction", "profile", "noise", "output", "evaluate", "geometry"} <= keys
 
 
 def test_unknown_key_suggests_the_nearest():

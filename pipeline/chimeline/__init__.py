@@ -6,6 +6,7 @@ The stages are callable on arrays for notebooks and return the same result objec
     cfg, resolved, source = chimeline.load_config("configs/default.yaml")
     res = chimeline.process_scan("scan.laz", cfg, resolved, source)   # RunResult: shell, junction, profile, noise
     res.profile.elevation, res.profile.std_error, res.noise.sigma
+    res.geometry.plumb.total, res.geometry.roundness.ovality          # ShellGeometry (None if switched off)
 
 Public names are loaded on first use (so ``import chimeline`` and ``chimeline --help`` stay fast).
 """
@@ -26,6 +27,7 @@ _PUBLIC = {
     "Junction": "stages.junction", "extract_junction": "stages.junction", "RingFilter": "stages.junction",
     "Profile": "stages.profile", "bin_junction": "stages.profile",
     "NoiseEstimate": "stages.noise", "estimate_noise": "stages.noise", "attach_uncertainty": "stages.noise",
+    "ShellGeometry": "stages.geometry", "measure_geometry": "stages.geometry", "FaceSampler": "stages.geometry",
     "SurveyData": "io.surveys", "read_survey": "io.surveys", "load_arc_table": "io.arctable",
     "read_run_folder": "io.runfiles",
     "evaluate_survey": "evaluate", "tank_data": "evaluate", "Evaluation": "evaluate",

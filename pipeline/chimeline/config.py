@@ -120,8 +120,17 @@ def _convert(tp, value, key, source, md):
                 return _convert(a, value, key, source, md)
             except ConfigError as exc:
                 errors.append((a, exc))
-        # the error of the branch the value looks like (a unit string's own error rather than "a number")
-        raise next((e for a, e in errors if isinstance(value, str) and a is str), errors[0][1])
+        # the error of the branch the value looks like (a unit string's own error rather than "a number", a list's
+        # own error rather than "a string")
+        def looks_like(a):
+            origin = typing.get_origin(a)
+            if isinstance(value, str):
+                return a is str
+            if isinstance(value, (list, tuple)):
+                return origin in (list, tuple)
+            return a in (int, float)
+
+        raise next((e for a, e in errors if looks_like(a)), errors[0][1])
     if origin is Literal:
         if value not in args:
             _fail(source, key, "one of " + ", ".join(repr(a) for a in args), value)
@@ -433,12 +442,45 @@ def default_mapping() -> dict:
 
 
 @dataclass(frozen=True)
+class ColumnsConfig:
+    """0-based column numbers of an ASCII or .npy scan (``input.columns``)."""
+
+    x: int = rng_field(0, 0, 10_000)
+    y: int = rng_field(1, 0, 10_000)
+    z: int = rng_field(2, 0, 10_000)
+    station: Optional[int] = rng_field(None, 0, 10_000, doc="column of the station (scan position) id; None: none")
+
+    def _check(self, prefix, source):
+        used = [self.x, self.y, self.z] + ([self.station] if self.station is not None else [])
+        if self.station is not None and not (isinstance(self.station, int) and 0 <= self.station <= 10_000):
+            raise ConfigError(f"{source}: '{_join(prefix, 'station')}' must be an int in [0, 10000], got "
+                              f"{clip_repr(self.station)}")
+        if len(set(used)) != len(used):
+            raise ConfigError(f"{source}: '{prefix}' maps two names to one column: {used}")
+
+
+LENGTH_UNIT_CHOICES = ("auto", "m", "ft", "us_ft", "mm")
+
+
+@dataclass(frozen=True)
 class InputConfig:
-    units: str = choice_field("auto", ("auto", "m", "ft", "us_ft", "mm"),
-                              doc="length unit of the scan; auto: the LAS CRS unit if present, else m")
+    units: str = choice_field("auto", LENGTH_UNIT_CHOICES,
+                              doc="length unit of the scan, both axes; auto: the file's CRS unit if present, else m")
     up_axis: str = choice_field("z", ("z", "y"), doc="which file axis points up")
     chunk_size: int = rng_field(1_000_000, 10_000, 100_000_000, doc="points read per chunk")
     max_nonfinite_fraction: float = rng_field(0.01, 0.0, 1.0, doc="refuse the scan above this share of NaN/inf points")
+    setup: str = ""  # name of the scanner setup (instrument, step, stations), shown by compare
+    units_horizontal: str = choice_field("auto", LENGTH_UNIT_CHOICES, doc="horizontal unit; auto: input.units")
+    units_vertical: str = choice_field("auto", LENGTH_UNIT_CHOICES, doc="vertical unit; auto: input.units")
+    units_priority: str = choice_field("error", ("error", "config", "file"),
+                                       doc="when the file's CRS and the configured units disagree: refuse, or which "
+                                           "one wins")
+    skip_classes: tuple[int, ...] = rng_field((7, 18), 0, 255, doc="LAS classes not used (7 low, 18 high noise)")
+    skip_withheld: bool = True  # LAS points flagged withheld are not used
+    columns: Optional[ColumnsConfig] = None  # ASCII/.npy column map; None: header names, else x y z first, no station
+    file_stations: str = choice_field("auto", ("auto", "always", "never"),
+                                      doc="several input files: number their points' stations by file (auto: only "
+                                          "files without station ids)")
 
 
 @dataclass(frozen=True)
@@ -446,6 +488,13 @@ class FrameConfig:
     origin: Optional[tuple[float, float, float]] = rng_field(None, -1e9, 1e9, doc="scan units; default: rounded median of the sample")
     azimuth_reference_deg: float = rng_field(0.0, -360.0, 360.0, doc="direction of azimuth 0, degrees clockwise from +Y")
     azimuth_direction: str = choice_field("cw", ("cw", "ccw"))
+    azimuth_zero_at: Optional[tuple[float, float]] = rng_field(None, -1e9, 1e9, doc="scan coordinates [x, y] of a "
+                                                                                    "feature: azimuth 0 points at it")
+
+    def _check(self, prefix, source):
+        if self.azimuth_zero_at is not None and self.azimuth_reference_deg != 0.0:
+            raise ConfigError(f"{source}: set either '{_join(prefix, 'azimuth_zero_at')}' or "
+                              f"'{_join(prefix, 'azimuth_reference_deg')}', not both")
 
 
 @dataclass(frozen=True)
@@ -534,23 +583,30 @@ class NoiseConfig:
 class EvaluateConfig:
     input_units: str = choice_field("auto", ("auto", "m", "mm", "ft", "us_ft", "in"),
                                     doc="length unit of an evaluate input; auto: from the sibling profile.json")
-    tilt_rule: str = choice_field("p_value", ("p_value", "r_squared"),
-                                  doc="what decides that a tilt plane exists: the F test or the standard's R^2")
     alpha: float = rng_field(0.05, 1e-6, 0.5, doc="significance level of the tests")
-    r2_min: float = rng_field(0.9, 0.0, 1.0, doc="the standard's R^2 acceptance of the cosine fit")
-    order_selection: str = choice_field("auto", ("auto", "nested_f", "bic", "fixed"),
-                                        doc="auto: BIC for dense profiles, nested F tests for sparse surveys")
+    screening_alpha: float = rng_field(0.01, 1e-6, 0.5, doc="false-flag rate of each screening flag on noise alone")
+    r2_min: float = rng_field(0.9, 0.0, 1.0, doc="the standard's R^2 acceptance of the cosine fit (from memory)")
+    order_selection: str = choice_field("auto", ("auto", "blocked_cv", "nested_f", "bic", "fixed"),
+                                        doc="auto: blocked cross-validation for dense profiles, nested F for surveys")
     order: Optional[int] = rng_field(None, 1, 500, doc="the Fourier order with order_selection: fixed")
     max_order: int = rng_field(30, 1, 500, doc="cap on the Fourier order")
     min_wavelength: float = rng_field(3.0, 0.1, 1000.0, doc="m of arc: shortest Fourier wavelength fitted")
-    deflection_spacing: Union[float, str] = rng_field("auto", 0.1, 1000.0,
+    cv_block_deg: float = rng_field(10.0, 1.0, 90.0, doc="contiguous arc left out together in cross-validation")
+    cv_folds: int = rng_field(6, 2, 20, doc="folds of the blocked cross-validation")
+    deflection_spacing: Union[float, str] = rng_field("auto", 0.0, 1e4, lo_open=True,
                                                       doc="m of arc between a point and its neighbours (dense), or auto")
-    survey_std_error: float = rng_field(0.0015, 0.0, 0.1, doc="m, 1 sigma assumed for survey readings without one")
-    curvature_step_deg: float = rng_field(0.5, 0.01, 10.0, doc="azimuth step of the curvature check")
-    arc_table: Optional[str] = None  # YAML permissible settlement table; None: the packaged illustrative demo table
+    curvature_smoothing: Union[float, str] = rng_field("auto", 0.0, 1e4, lo_open=True,
+                                                       doc="m: spacing the curvature screening is smoothed at; auto: L")
+    dip_min_length: float = rng_field(1.0, 0.05, 50.0, doc="m: shorter features are plate texture, not dips")
+    min_evidence_coverage: float = rng_field(0.9, 0.0, 1.0, doc="share of the circumference a check needs")
+    survey_std_error: float = rng_field(0.0015, 0.0, 0.1, doc="m, 1 sigma of a survey reading (floor when estimated)")
+    curvature_step_deg: float = rng_field(0.5, 0.01, 10.0, doc="azimuth step of the evaluation grid")
+    arc_table: Optional[str] = None  # permissible settled-arc table (YAML path), illustrative-demo, or none
     survey_center: Optional[tuple[float, float]] = rng_field(None, -1e9, 1e9,
                                                              doc="for x y z surveys, file units; None: fitted circle")
     start_azimuth_deg: float = rng_field(0.0, 0.0, 360.0, doc="azimuth of point 1 in numbered surveys")
+    survey_points: Optional[int] = rng_field(None, 4, 1000, doc="numbered surveys: points around the tank "
+                                                                 "(default: the highest number)")
     decimate: Optional[int] = rng_field(None, 4, 360, doc="points of a simulated conventional survey taken from a "
                                                           "dense profile")
     decimate_start_deg: Union[float, str] = rng_field(0.0, 0.0, 360.0, doc='or "all": every start within one spacing')
@@ -558,19 +614,94 @@ class EvaluateConfig:
     def _check(self, prefix, source):
         if self.order_selection == "fixed" and self.order is None:
             raise ConfigError(f"{source}: '{_join(prefix, 'order')}' is required with order_selection: fixed")
-        if isinstance(self.deflection_spacing, str) and self.deflection_spacing != "auto":
-            raise ConfigError(f"{source}: '{_join(prefix, 'deflection_spacing')}' must be a number (m) or 'auto', "
-                              f"got {clip_repr(self.deflection_spacing)}")
+        if self.order is not None and not (isinstance(self.order, int) and 1 <= self.order <= 500):
+            raise ConfigError(f"{source}: '{_join(prefix, 'order')}' must be an int in [1, 500], got {clip_repr(self.order)}")
+        for key in ("deflection_spacing", "curvature_smoothing"):
+            v = getattr(self, key)
+            if isinstance(v, str) and v != "auto":
+                raise ConfigError(f"{source}: '{_join(prefix, key)}' must be a number (m) or 'auto', got {clip_repr(v)}")
+            if not isinstance(v, str) and not (0 < v < 1e4):
+                raise ConfigError(f"{source}: '{_join(prefix, key)}' must be a number of metres in (0, 10000) or "
+                                  f"'auto', got {clip_repr(v)}")
+        if self.decimate is not None and not (isinstance(self.decimate, int) and 4 <= self.decimate <= 360):
+            raise ConfigError(f"{source}: '{_join(prefix, 'decimate')}' must be an int in [4, 360], got {clip_repr(self.decimate)}")
+        if self.survey_points is not None and not (isinstance(self.survey_points, int) and 4 <= self.survey_points <= 1000):
+            raise ConfigError(f"{source}: '{_join(prefix, 'survey_points')}' must be an int in [4, 1000], got "
+                              f"{clip_repr(self.survey_points)}")
         d = self.decimate_start_deg
         if isinstance(d, str) and d != "all":
-            raise ConfigError(f"{source}: '{_join(prefix, 'decimate_start_deg')}' must be degrees or 'all', got "
-                              f"{clip_repr(d)}")
+            raise ConfigError(f"{source}: '{_join(prefix, 'decimate_start_deg')}' must be degrees or 'all', got {clip_repr(d)}")
+        if not isinstance(d, str) and not (0 <= d < 360):
+            raise ConfigError(f"{source}: '{_join(prefix, 'decimate_start_deg')}' must be degrees in [0, 360) or "
+                              f"'all', got {clip_repr(d)}")
 
 
 @dataclass(frozen=True)
 class OutputConfig:
     length_unit: str = choice_field("input", ("input", "m", "mm", "ft", "us_ft", "in"))
     plots: bool = True
+    pdf: bool = False  # also print report.html to report.pdf with headless Chromium
+
+
+#: radius tolerance by nominal diameter, from memory of API 650 7.5.3 (stated there at 1 ft above the bottom corner
+#: weld): rows [smallest diameter m, +- tolerance m]; < 40 ft: 1/2 in, 40-150 ft: 3/4 in, 150-250 ft: 1 in,
+#: >= 250 ft: 1-1/4 in. Verify against the governing edition.
+RADIUS_TOLERANCE_TABLE = [[0.0, 0.0127], [12.192, 0.01905], [45.72, 0.0254], [76.2, 0.03175]]
+PLUMB_RULES = ("reconstruction", "new_construction")
+
+
+@dataclass(frozen=True)
+class GeometryConfig:
+    enabled: bool = True  # measure out-of-plumbness, roundness and the deviation map from the shell face
+    face_budget: int = rng_field(800_000, 10_000, 100_000_000, doc="shell-face points kept at all heights from the "
+                                                                    "whole scan (bounds memory)")
+    face_band: float = rng_field(0.15, 0.02, 2.0, doc="m either side of the fitted shell kept while streaming")
+    azimuth_step_deg: float = rng_field(1.0, 0.1, 10.0, doc="azimuth bins of the roundness and the deviation map")
+    height_step: float = rng_field(0.25, 0.05, 2.0, doc="m, height rows of the deviation map")
+    band_height: float = rng_field(0.2, 0.05, 1.0, doc="m, height of the band averaged at each measuring height")
+    edge_margin: float = rng_field(0.1, 0.0, 1.0, doc="m between a measuring band and a course seam or the shell top")
+    min_points: int = rng_field(8, 3, 100_000, doc="face points a bin, cell or plumb line needs; fewer is a gap")
+    reject_k: float = rng_field(3.5, 2.0, 20.0, doc="robust z-score beyond which face points are rejected")
+    course_height: float = rng_field(2.4, 0.5, 5.0, doc="m, equal courses unless course_heights is given")
+    course_heights: Optional[tuple[float, ...]] = rng_field(None, 0.3, 10.0, doc="m per course, bottom first")
+    plumb_step_deg: float = rng_field(10.0, 1.0, 90.0, doc="azimuth step of the vertical plumb lines")
+    plumb_reference_height: float = rng_field(0.3, 0.05, 3.0, doc="m above the junction: the bottom of each line")
+    plumb_tolerance: Union[float, str] = rng_field("reconstruction", 0.0, 1.0, lo_open=True,
+                                                   doc="reconstruction | new_construction | m")
+    vertical_reference_sigma: float = rng_field(2e-5, 0.0, 0.01, doc="rad, 1 sigma per axis of the scan's vertical "
+                                                                      "(levelling, registration)")
+    registration_sigma_prior: float = rng_field(0.002, 0.0, 0.05, doc="m, 1 sigma plan shift of a station's points "
+                                                                       "(registration) assumed where not observed")
+    roundness_heights: Union[str, tuple[float, ...]] = rng_field("auto", 0.05, 100.0,
+                                                                 doc="auto: 0.3 m and each course's mid-height; or m")
+    roundness_reference: str = choice_field("fitted", ("fitted", "nominal"),
+                                            doc="radius deviation from the fitted circle, or from tank.diameter / 2")
+    radius_tolerance_table: tuple[tuple[float, float], ...] = rng_field(RADIUS_TOLERANCE_TABLE, 0.0, 1000.0,
+                                                                        doc="[smallest diameter m, tolerance m]")
+    fourier_max_mode: int = rng_field(8, 2, 60, doc="highest Fourier mode of the radius reported per height")
+
+    def _check(self, prefix, source):
+        t = self.plumb_tolerance
+        if isinstance(t, str) and t not in PLUMB_RULES:
+            raise ConfigError(f"{source}: '{_join(prefix, 'plumb_tolerance')}' must be {' or '.join(PLUMB_RULES)} "
+                              f"or a length in m, got {clip_repr(t)}")
+        if not isinstance(t, str) and not 0 < t <= 1.0:
+            raise ConfigError(f"{source}: '{_join(prefix, 'plumb_tolerance')}' must be a length in (0, 1] m, got {clip_repr(t)}")
+        h = self.roundness_heights
+        if isinstance(h, str) and h != "auto":
+            raise ConfigError(f"{source}: '{_join(prefix, 'roundness_heights')}' must be 'auto' or a list of heights "
+                              f"in m, got {clip_repr(h)}")
+        if not isinstance(h, str) and (not h or any(not 0.05 <= v <= 100.0 for v in h)):
+            raise ConfigError(f"{source}: '{_join(prefix, 'roundness_heights')}' must be 'auto' or a list of heights "
+                              f"in [0.05, 100] m, got {clip_repr(list(h))}")
+        rows = self.radius_tolerance_table
+        if not rows or rows[0][0] != 0 or any(b[0] <= a[0] for a, b in zip(rows, rows[1:])):
+            raise ConfigError(f"{source}: '{_join(prefix, 'radius_tolerance_table')}' must list [smallest diameter m, "
+                              f"tolerance m] rows starting at 0 with increasing diameters, got "
+                              f"{clip_repr([list(r) for r in rows])}")
+        if any(r[1] <= 0 for r in rows):
+            raise ConfigError(f"{source}: '{_join(prefix, 'radius_tolerance_table')}' tolerances must be > 0 m, got "
+                              f"{clip_repr([list(r) for r in rows])}")
 
 
 @dataclass(frozen=True)
@@ -587,6 +718,7 @@ class ChimelineConfig:
     noise: NoiseConfig = field(default_factory=NoiseConfig)
     output: OutputConfig = field(default_factory=OutputConfig)
     evaluate: EvaluateConfig = field(default_factory=EvaluateConfig)
+    geometry: GeometryConfig = field(default_factory=GeometryConfig)
 
 
 def load_config(path=None, sets=(), *, mapping: dict | None = None,

@@ -13,3 +13,11 @@ VERTICAL_REFERENCE = ("elevations, tilt and base elevation rely on the scanners'
 
 #: Said wherever the packaged permissible settled-arc table is used.
 ILLUSTRATIVE_TABLE = ("ILLUSTRATIVE demo table, not the standard's values: this verdict is a demonstration only")
+
+#: Said wherever shell geometry (out-of-plumbness, roundness) is judged against a tolerance.
+GEOMETRY_TOLERANCES = ("The shell geometry tolerances are the standard's construction tolerances, recalled from memory "
+                       "(out-of-plumbness H/100, max 5 in, API 653 10.5.2, or H/200, API 650 7.5.2; radius by diameter "
+                       "band, API 650 7.5.3, stated there at 1 ft above the bottom): verify them against the governing "
+                       "edition. They are used for assessment at the engineer's discretion and never set the settlement "
+                       "verdict. Out-of-plumbness rests on the scan's vertical reference (scanner levelling and "
+                       "registration); roundness does not.")

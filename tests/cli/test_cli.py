@@ -1,10 +1,9 @@
 """CLI: help, exit codes, one-line errors, and nothing written on failure (click's CliRunner)."""
-import json
 
 import laspy
 import numpy as np
 
-from tests.helpers import assert_fails, invoke
+from tests.helpers import assert_fails, cli_output, invoke
 
 
 def test_help_lists_every_command_with_the_caution():
@@ -100,3 +99,17 @@ def test_open3d_that_cannot_load_is_one_line(tmp_path, small_scan, monkeypatch):
     scan, _ = small_scan
     r = assert_fails(["run", scan, "--out", tmp_path / "o"], "sudo apt-get install libusb-1.0-0", tmp_path / "o")
     assert "libusb-1.0.so.0" in r.output
+
+
+def test_every_command_help_says_what_it_writes():
+    assert "report.html, plots/*.png" in invoke(["run", "--help"]).output
+    assert "evaluation.json, evaluation.csv" in invoke(["evaluate", "--help"]).output
+    assert "compare.html" in invoke(["compare", "--help"]).output
+
+
+def test_verbose_shows_stage_details(tmp_path, small_scan):
+    scan, _ = small_scan
+    r = invoke(["-v", "run", scan, "--out", tmp_path / "o", "--set", "output.plots=false"])
+    for phrase in ("DEBUG junction: ring", "DEBUG noise: per station", "INFO profile: ", "INFO junction: "):
+        assert phrase in cli_output(r), phrase
+    assert cli_output(r).count("INFO junction: ") == 1

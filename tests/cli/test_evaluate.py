@@ -39,9 +39,13 @@ def test_sparse_survey_outputs(tmp_path):
     assert js["criteria"][0]["verdict"] == "acceptable" and js["verdict"] == "acceptable"
     assert js["units"] == "m"
     assert "curvature_second_difference" in js["points"][0]
-    assert (out / "evaluation.csv").read_text().count("\n") == 11
+    rows = [ln for ln in (out / "evaluation.csv").read_text().splitlines() if not ln.startswith("#")]
+    assert len(rows) == 11 and rows[0].startswith("azimuth_deg,label,elevation_m,out_of_plane_m,deflection_m")
+    # full precision: the CSV's ratio equals the JSON's to the last bit
+    assert [float(r.split(",")[7]) for r in rows[1:]] == [p["ratio"] for p in js["points"]]
     fe = (out / "fe_out_of_plane.csv").read_text().splitlines()
-    assert fe[0].startswith("#") and fe[1].startswith("azimuth_deg,arc_length")
+    assert fe[0].startswith("#") and "qualified tank engineer" in fe[1]
+    assert fe[2].startswith("azimuth_deg,arc_length_m,x_m,y_m,out_of_plane_m,std_error_m")
 
 
 def test_xyz_and_numbered_surveys(tmp_path):
@@ -117,3 +121,42 @@ def test_units_problems(tmp_path):
     (tmp_path / "profile.json").write_text(json.dumps({"units": "ft"}))
     assert_fails(base + ["--set", "tank.yield_strength=250 MPa", "--set", "evaluate.input_units=m"], "says units 'ft'",
            tmp_path / "o")
+
+
+def test_numbered_survey_keeps_a_missing_point_missing(tmp_path):
+    """Twelve points around the tank, point 7 lost: with evaluate.survey_points = 12 the others keep their azimuths."""
+    rows = [(i, f"{10 + 0.02 * np.cos(np.radians((i - 1) * 30.0 - 40)):.5f}") for i in range(1, 13) if i != 7]
+    f = write_csv(tmp_path / "n.csv", "point,elevation", rows)
+    invoke(["-q", "evaluate", f, "--out", tmp_path / "a", "--set", "evaluate.survey_points=12"] + TANK)
+    js = json.loads((tmp_path / "a" / "evaluation.json").read_text())
+    assert [p["azimuth_deg"] for p in js["points"]] == [(i - 1) * 30.0 for i in range(1, 13) if i != 7]
+    assert_fails(["evaluate", f, "--out", tmp_path / "b", "--set", "evaluate.survey_points=10"] + TANK,
+                 "beyond evaluate.survey_points = 10", tmp_path / "b")
+
+
+def test_console_gives_the_standard_the_r2_rule_and_the_screening_in_three_lines(tmp_path):
+    f = write_csv(tmp_path / "s.csv", "azimuth_deg,elevation", _survey_rows())
+    r = invoke(["evaluate", f, "--out", tmp_path / "o"] + TANK)
+    lines = r.output.splitlines()
+    i = next(k for k, ln in enumerate(lines) if ln.startswith("standard's checks: "))
+    assert lines[i].startswith("standard's checks: ACCEPTABLE, governed by deflection (B.3.2.1)")
+    assert lines[i + 1].startswith("R^2 rule: R^2 = ")
+    assert lines[i + 2].startswith("screening (informs, never decides): ")
+    assert "qualified tank engineer" in r.output
+
+
+def test_evaluation_json_contract(tmp_path):
+    f = write_csv(tmp_path / "s.csv", "azimuth_deg,elevation", _survey_rows())
+    invoke(["-q", "evaluate", f, "--out", tmp_path / "o"] + TANK)
+    js = json.loads((tmp_path / "o" / "evaluation.json").read_text())
+    assert js["verdict"] in ("acceptable", "exceeds", "indeterminate") and js["governing"]
+    std = [c for c in js["criteria"] if "clause" in c]
+    assert [c["clause"] for c in std] == ["B.3.2.1", "B.3.2.2"]
+    assert all(c.get("screening") is True for c in js["criteria"] if "clause" not in c)
+    for c in js["criteria"]:
+        assert {"name", "verdict", "ratio", "ratio_upper95", "azimuth_ranges_deg", "notes"} <= set(c)
+    assert {"r_squared", "r2_rule_met", "p_value", "decided_by"} <= set(js["tilt"])
+    assert js["tilt"]["r2_rule_met"] == (js["tilt"]["r_squared"] >= 0.9)
+    curve = js["curvature"]["curve"]
+    assert len(curve["azimuth_deg"]) == len(curve["kappa_per_m"]) == len(js["model"]["out_of_plane"]) == 720
+    assert "qualified tank engineer" in js["caution"]

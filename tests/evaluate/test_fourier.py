@@ -1,5 +1,4 @@
 """Fourier regression against statsmodels WLS, known-mode profiles and the known-noise chi-square test."""
-import math
 
 import numpy as np
 import pytest

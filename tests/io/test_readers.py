@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 
 from chimeline.config import load_config
+from chimeline.errors import InputError
 from chimeline.io.readers import open_scan, wkt_units
 from chimeline.workflows.run import process_scan
 
@@ -40,17 +41,21 @@ def test_feet_scan_gives_feet_outputs(simulate, units, factor):
     assert src.units_hint == units  # from the file's WKT
     cfg, resolved, s = load_config()
     res = process_scan(scan, cfg, resolved, s)
-    assert res.frame.units == units and res.frame.units_source == "LAS CRS"
+    assert res.frame.units == units and res.frame.units_source == "file CRS (WKT)"
     # internal metres; the truth radius is in feet
     assert res.shell.radius / factor == pytest.approx(truth["tank"]["outer_radius"], abs=0.003 / factor)
 
 
-def test_units_conflict_warns(simulate):
+def test_units_conflict_is_an_error_unless_the_config_says_which_wins(simulate):
     scan, _ = simulate("small_tank.yaml", 92, output={"format": "las14", "units": "ft",
                                                      "georef_offset": [2000000.0, 700000.0, 100.0]})
     cfg, resolved, s = load_config(None, [("input.units", "us_ft")])
+    with pytest.raises(InputError, match=r"input.units is 'us_ft' but the file's CRS .* says 'ft'.*units_priority"):
+        process_scan(scan, cfg, resolved, s)
+    cfg, resolved, s = load_config(None, [("input.units", "us_ft"), ("input.units_priority", "config")])
     res = process_scan(scan, cfg, resolved, s)
-    assert any("CRS says 'ft'" in w for w in res.warnings)
+    assert any("says 'ft'" in w and "using 'us_ft'" in w for w in res.warnings)
+    assert res.frame.units == "us_ft" and res.frame.units_source == "config"
 
 
 def test_y_up_file_gives_the_same_profile(simulate, tmp_path):

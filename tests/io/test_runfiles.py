@@ -1,4 +1,5 @@
 """Run folders: one typed writer format and one reader; round trips and clean errors on damaged folders."""
+import dataclasses
 import json
 
 import numpy as np
@@ -22,10 +23,15 @@ def _table():
 def test_profile_table_round_trip():
     t = _table()
     text = t.to_csv()
-    assert text.splitlines()[0].startswith("azimuth_deg,elevation,std_error")
+    lines = text.splitlines()
+    assert lines[0].startswith("#") and "qualified tank engineer" in lines[1]
+    assert lines[2].startswith("azimuth_deg,elevation_m,std_error_m,n_points,n_rejected,n_stations,n_eff,scale_m")
     back = ProfileTable.from_csv(text, "x.csv")
-    np.testing.assert_allclose(back.elevation, np.round(t.elevation, 5), equal_nan=True)
+    np.testing.assert_array_equal(back.elevation, t.elevation)  # full precision: bit for bit
     np.testing.assert_array_equal(back.status, t.status)
+    assert back.units == "m"
+    ft = dataclasses.replace(t, units="us_ft").to_csv()
+    assert "elevation_us_ft" in ft and ProfileTable.from_csv(ft, "f.csv").units == "us_ft"
     np.testing.assert_array_equal(back.n_points, t.n_points)
     assert back.to_csv() == text
 
@@ -62,6 +68,6 @@ def test_damaged_folders_give_one_clean_error(tmp_path):
     (tmp_path / "profile.json").write_text(json.dumps({"units": "m"}))
     with pytest.raises(InputError, match="no profile.csv"):
         read_run_folder(tmp_path)
-    (tmp_path / "profile.csv").write_text("azimuth_deg,elevation\n1,2\n")
+    (tmp_path / "profile.csv").write_text("azimuth_deg,elevation_m\n1,2\n")
     with pytest.raises(InputError, match="missing column"):
         read_run_folder(tmp_path)

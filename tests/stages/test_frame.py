@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 
 from chimeline.config import FrameConfig, InputConfig
-from chimeline.stages.frame import make_frame
+from chimeline.stages.frame import make_frame, tie_azimuth_zero
 
 
 def _frame(**kw):
@@ -45,3 +45,20 @@ def test_file_xy_to_local_inverts_to_file_xy():
     xy = np.array([612400.5, 5234500.25])
     np.testing.assert_allclose(f.to_file_xy(f.file_xy_to_local(xy)), xy, rtol=0, atol=1e-9)
     assert f.up_origin_m() == pytest.approx(40.0 * 1200 / 3937, rel=1e-15)
+
+
+@pytest.mark.parametrize("direction", ["cw", "ccw"])
+def test_azimuth_zero_tied_to_a_feature(direction):
+    """frame.azimuth_zero_at: the feature's azimuth is 0 and the implied reference angle is reported."""
+    from types import SimpleNamespace
+
+    f = _frame(azimuth_direction=direction)
+    centre_file = np.array([612345.0 + 3.0, 5234568.0 - 2.0])
+    shell = SimpleNamespace(center=np.array([3.0, -2.0, 0.0]), radius=10.0)
+    feature = centre_file + np.array([10.0, 10.0])  # north-east of the centre: 45 deg clockwise from +Y
+    g = tie_azimuth_zero(f, shell, feature)
+    assert g.azimuth_reference_deg == pytest.approx(45.0)
+    d = g.file_xy_to_local(feature) - shell.center[:2]
+    assert g.azimuth_deg(d[0], d[1]) == pytest.approx(0.0, abs=1e-9)
+    east = np.array([1.0, 0.0])
+    assert g.azimuth_deg(*east) == pytest.approx(45.0 if direction == "cw" else 315.0)

@@ -18,8 +18,8 @@ def test_run_writes_profile_and_resolved_config(tmp_path, small_scan):
     invoke(["-q", "run", str(scan), "--out", str(out), "--set", "profile.bin_width_deg=2"])
     names = {p.name for p in out.iterdir()}
     assert {"profile.csv", "profile.json", "config.resolved.yaml", "quicklook.png"} <= names
-    rows = (out / "profile.csv").read_text().splitlines()
-    assert rows[0].split(",")[:6] == ["azimuth_deg", "elevation", "std_error", "n_points", "n_rejected", "n_stations"]
+    rows = [r for r in (out / "profile.csv").read_text().splitlines() if not r.startswith("#")]
+    assert rows[0].split(",")[:6] == ["azimuth_deg", "elevation_m", "std_error_m", "n_points", "n_rejected", "n_stations"]
     assert len(rows) == 1 + 180
     js = json.loads((out / "profile.json").read_text())
     for key in ("units", "shell", "noise", "input", "config", "software", "counts"):
@@ -80,7 +80,7 @@ def test_same_input_and_config_give_the_same_bytes(tmp_path, small_scan, monkeyp
     invoke(["-q", "run", scan.name, "--out", tmp_path / "c"] + tank)
     files = sorted(p.relative_to(tmp_path / "a") for p in (tmp_path / "a").rglob("*") if p.is_file())
     assert {"report.html", "manifest.json", "provenance.json", "evaluation.json", "plots/profile.png",
-            "quicklook.png"} <= {str(f) for f in files}
+            "quicklook.png", "plumbness.csv", "roundness.csv", "shell_deviation.csv"} <= {str(f) for f in files}
     for other in ("b", "c"):
         assert files == sorted(p.relative_to(tmp_path / other) for p in (tmp_path / other).rglob("*") if p.is_file())
         differ = [str(f) for f in files if (tmp_path / "a" / f).read_bytes() != (tmp_path / other / f).read_bytes()]

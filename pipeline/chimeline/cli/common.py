@@ -8,8 +8,8 @@ default verbosity, printed after any progress display was cleared:
 - Ctrl-C: ``chimeline: error: interrupted``, exit 130;
 - anything else is a bug: ``chimeline: internal error: ...``, exit 1 (the traceback with -v).
 
-Console: at default verbosity, chimeline's INFO lines go to stdout when stderr is not a terminal (progress bars
-otherwise), its warnings are held and printed at the end of a successful command, and library output (Python
+Console: at default verbosity, chimeline's INFO lines (one per stage) go to stdout, above the progress bar while
+one is on the terminal, its warnings are held and printed at the end of a successful command, and library output (Python
 warnings from numpy or matplotlib, other libraries' log records, text that C libraries such as open3d write
 straight to the process's stdout or stderr) is captured into the log and shown with -v only. With -v every
 record goes to stderr as it happens.
@@ -59,16 +59,16 @@ class ConsoleLog(logging.Handler):
         ours = record.name == "chimeline" or record.name.startswith("chimeline.")
         if self.verbose:
             who = "" if ours else f"[{record.name}] "
-            sys.stderr.write(f"{record.levelname} {who}{msg}\n")
+            _line(f"{record.levelname} {who}{msg}", sys.stderr)
             if record.exc_info and record.levelno <= logging.DEBUG:
-                sys.stderr.write(self.format(record).split("\n", 1)[-1] + "\n")
+                _line(self.format(record).split("\n", 1)[-1], sys.stderr)
             return
         if not ours:
             return
         if record.levelno >= logging.WARNING:
             self.held.append(msg)
-        elif record.levelno >= logging.INFO and not self.quiet and not _is_tty(sys.stderr):
-            sys.stdout.write(msg + "\n")
+        elif record.levelno >= logging.INFO and not self.quiet:
+            _line(msg, sys.stdout)
 
     def flush_held(self):
         """Print held warnings (success); skip those the command already printed."""
@@ -79,6 +79,16 @@ class ConsoleLog(logging.Handler):
 
 
 _CONSOLE: ConsoleLog | None = None
+
+
+def _line(text: str, stream) -> None:
+    """One line; above the progress bar while one is on the terminal (so the bar is not torn)."""
+    if Progress.showing:
+        from tqdm import tqdm
+
+        tqdm.write(text, file=stream)
+    else:
+        stream.write(text + "\n")
 
 
 def _is_tty(stream) -> bool:
@@ -144,28 +154,47 @@ def native_output_to_log():
 
 
 class Progress:
-    """Progress callback: a tqdm bar on a terminal, nothing (INFO lines come from the workflows) otherwise."""
+    """One progress display for a whole run: a bar over the stages on a terminal (points while streaming), closed
+    before anything else is printed; nothing otherwise (the workflows log one INFO line per stage)."""
+
+    STAGES = ("read", "shell", "stream", "junction", "profile", "noise", "evaluate", "report")
+    showing = False  # a bar is on the terminal (the console writes its lines above it)
 
     def __init__(self, quiet: bool):
         self.bar = None
         self.enabled = not quiet and _is_tty(sys.stderr)
+        self._other = None
 
-    def __call__(self, stage: str, done: int, total: int | None):
+    def __call__(self, stage: str, done: int | None = None, total: int | None = None):
         if not self.enabled:
             return
         from tqdm import tqdm
 
-        if self.bar is None or self.bar.desc != stage:
-            if self.bar is not None:
-                self.bar.close()
-            self.bar = tqdm(total=total, desc=stage, unit="pt", unit_scale=True, leave=False, file=sys.stderr)
-        self.bar.n = done
-        self.bar.refresh()
+        if stage in self.STAGES:
+            if self.bar is None:
+                self.bar = tqdm(total=len(self.STAGES), desc=stage, unit="stage", leave=False, file=sys.stderr,
+                                bar_format="{desc:<10} {bar} {n_fmt}/{total_fmt} stages {postfix}")
+            Progress.showing = True
+            self.bar.n = self.STAGES.index(stage)
+            self.bar.set_description_str(stage, refresh=False)
+            self.bar.set_postfix_str(f"{done / 1e6:.1f} of {total / 1e6:.1f} M points" if done and total else "",
+                                     refresh=False)
+            self.bar.refresh()
+            return
+        if self._other is None or self._other.desc != stage:  # e.g. the simulator's rays
+            if self._other is not None:
+                self._other.close()
+            self._other = tqdm(total=total, desc=stage, unit="pt", unit_scale=True, leave=False, file=sys.stderr)
+            Progress.showing = True
+        self._other.n = done or 0
+        self._other.refresh()
 
     def close(self):
-        if self.bar is not None:
-            self.bar.close()
-            self.bar = None
+        for bar in (self.bar, self._other):
+            if bar is not None:
+                bar.close()
+        self.bar = self._other = None
+        Progress.showing = False
 
 
 @contextmanager

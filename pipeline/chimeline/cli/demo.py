@@ -7,6 +7,7 @@ import click
 
 from ..core.lazy import lazy_import
 from ..notices import CAUTION
+from ..report.console import verdict_lines
 from .common import Progress, reported
 
 synth_wf = lazy_import("chimeline.workflows.synth")
@@ -41,6 +42,6 @@ def demo(ctx, work_dir, regenerate):
     click.echo(f"noise sigma {n.sigma * 1e3:.2f} mm (95 % CI {n.ci[0] * 1e3:.2f}-{n.ci[1] * 1e3:.2f}), "
                f"coverage {100 * res.profile.coverage:.1f} %, shell radius {res.shell.radius:.4f} m")
     if res.evaluation is not None:
-        ev = res.evaluation
-        click.echo(f"verdict: {ev.verdict} (" + "; ".join(f"{c.name}: {c.verdict}" for c in ev.criteria) + ")")
+        for line in verdict_lines(res.evaluation, res.out_units):
+            click.echo(line)
     click.echo(f"Caution: {CAUTION}")

@@ -15,8 +15,9 @@ rerun_wf = lazy_import("chimeline.workflows.rerun")
 @click.argument("run_dir", type=click.Path(file_okay=False, path_type=Path))
 @click.option("--set", "sets", multiple=True, metavar="KEY=VALUE", help="Override a key of the earlier run's config.")
 @click.option("--out", "out_dir", required=True, type=OutFolder(), help="New output folder (not RUN_DIR).")
-@click.option("--scan", "scan", type=click.Path(dir_okay=False, path_type=Path), default=None,
-              help="The earlier scan at a new place (its SHA-256 must match the earlier run's input).")
+@click.option("--scan", "scan", multiple=True, type=click.Path(dir_okay=False, path_type=Path),
+              help="The earlier scan at a new place (its SHA-256 must match the earlier run's input); repeat it for "
+                   "a scan of several files.")
 @click.option("--allow-different-input", is_flag=True, help="Accept a --scan whose SHA-256 differs.")
 @click.pass_context
 def rerun(ctx, run_dir, sets, out_dir, scan, allow_different_input):
@@ -27,7 +28,7 @@ def rerun(ctx, run_dir, sets, out_dir, scan, allow_different_input):
     pairs = set_pairs(sets)
     progress = Progress(ctx.obj["quiet"])
     with reported(progress):
-        changed, headline, notes = rerun_wf.rerun(run_dir, out_dir, pairs, progress, scan=scan,
+        changed, headline, notes = rerun_wf.rerun(run_dir, out_dir, pairs, progress, scan=list(scan) or None,
                                                   allow_different_input=allow_different_input)
     for note in notes:
         warn(note)

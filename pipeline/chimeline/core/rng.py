@@ -16,6 +16,8 @@ class Purpose(IntEnum):
     FACE_THINNING = 17  # which shell-face points the junction ring keeps while streaming
     PLOT_SAMPLE = 18  # subsample of the ring for figures
     SCAN_VIEW = 19  # subsample of a simulated scan for its view PNG
+    EVALUATION_BANDS = 20  # Monte Carlo of the simultaneous (max-t) bands of the evaluation
+    FACE_SAMPLE = 21  # which shell-face points (all heights) the geometry stage keeps while streaming
     SYNTH_STATION = 1000  # + station index: a simulated station's parameters and registration error
     SYNTH_CHUNK = 2000  # + station index, then the chunk number: a simulated station's rays
     SYNTH_GROUND = 7777  # the simulated ground's roughness

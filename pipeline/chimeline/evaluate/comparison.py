@@ -51,3 +51,42 @@ def profile_difference(az_a, el_a, se_a, ok_a, datum_a, az_b, el_b, se_b, ok_b, 
             "rms_difference": float(np.sqrt(np.mean((d - mean) ** 2))),
             "consistency_chi2": chi2, "consistency_dof": dof, "consistency_p": float(stats.chi2.sf(chi2, dof)),
             "azimuth_deg": az_a[m], "difference": d, "difference_sd": sd}
+
+
+def equivalence(s1, d1, s2, d2, margin: float, alpha: float = 0.05) -> dict:
+    """Two one-sided F tests that sigma2 / sigma1 lies within [1 / (1 + margin), 1 + margin].
+
+    ``equivalent`` means the noise levels do not differ by more than the margin at level ``alpha`` (p = the larger
+    of the two one-sided p-values).
+    """
+    F = (s2 / s1) ** 2
+    lo, hi = 1.0 / (1.0 + margin), 1.0 + margin
+    p_lo = float(stats.f.sf(F / lo ** 2, d2, d1))  # H0: ratio <= lo
+    p_hi = float(stats.f.cdf(F / hi ** 2, d2, d1))  # H0: ratio >= hi
+    p = max(p_lo, p_hi)
+    return {"margin": margin, "bounds": [lo, hi], "p_value": p, "equivalent": p <= alpha}
+
+
+def noise_in_words(name_a, name_b, s1, s2, vr, eq, p_text) -> str:
+    """The QA answer in one sentence (sigmas in m, said in mm)."""
+    r, (lo, hi) = vr["sigma_ratio"], vr["ratio_ci95"]
+    differs = vr["p_value"] <= eq.get("alpha", 0.05)
+    head = (f"{name_b} is {100 * (r - 1):.0f} % noisier than {name_a}" if r >= 1 else
+            f"{name_b} is {100 * (1 - r):.0f} % quieter than {name_a}")
+    text = f"{head} (ratio {r:.2f}, 95 % CI {lo:.2f}-{hi:.2f}, {p_text(vr['p_value'])})"
+    if differs:
+        extra = math.sqrt(abs(s2 ** 2 - s1 ** 2)) * 1e3
+        text += (f"; the added noise in quadrature is {extra:.2f} mm" if r >= 1 else
+                 f"; {name_a} carries {extra:.2f} mm more noise in quadrature")
+    elif eq["equivalent"]:
+        text += f"; they do not differ by more than {100 * eq['margin']:.0f} % (equivalence test {p_text(eq['p_value'])})"
+    else:
+        text += (f"; the difference is not significant, but a difference of {100 * eq['margin']:.0f} % cannot be ruled "
+                 f"out (equivalence test {p_text(eq['p_value'])})")
+    return text
+
+
+CONSISTENCY_NOTE = ("the consistency test asks whether the two profiles differ by more than their standard errors "
+                    "allow once a constant offset is removed (chi-square of the bin differences about their weighted "
+                    "mean); a small p means real shape change or errors larger than stated, p near 1 means the "
+                    "differences are smaller than the standard errors predict (conservative standard errors)")

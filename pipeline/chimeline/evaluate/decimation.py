@@ -26,7 +26,8 @@ def decimate(s: SurveyData, n: int, start_deg: float) -> SurveyData | None:
                       units=s.units, source=f"{n}-point survey sampled from {s.source} from {start_deg:.2f} deg")
 
 
-def decimation_study(s: SurveyData, tank: TankData, cfg: EvaluateConfig, table: ArcTable) -> DecimationStudy:
+def decimation_study(s: SurveyData, tank: TankData, cfg: EvaluateConfig, table: ArcTable | None,
+                     seed: int = 0) -> DecimationStudy:
     n = cfg.decimate
     sub_cfg = dataclasses.replace(cfg, order_selection="nested_f", decimate=None)
     if cfg.decimate_start_deg == "all":
@@ -39,7 +40,7 @@ def decimation_study(s: SurveyData, tank: TankData, cfg: EvaluateConfig, table: 
         sv = decimate(s, n, st)
         if sv is None:
             continue
-        ev = evaluate_survey(sv, tank, sub_cfg, table)
+        ev = evaluate_survey(sv, tank, sub_cfg, table, seed=seed)
         runs.append(DecimatedRun(start_deg=float(st), r_squared=ev.tilt.r_squared,
                                  tilt_p_value=ev.tilt.f_test.p_value, tilt_amplitude=ev.tilt.amplitude,
                                  max_deflection_ratio=float(np.nanmax(ev.deflection.ratio)), verdict=ev.verdict,

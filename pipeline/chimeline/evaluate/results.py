@@ -46,10 +46,11 @@ class TiltFit:
     low_azimuth_deg: float  # where the plane is lowest
     r_squared: float
     f_test: TestResult  # overall F test of the cosine fit
-    r2_rule_met: bool  # R^2 >= r2_min (the standard's acceptance)
-    significant: bool  # per the configured tilt_rule
-    decided_by: str  # "p_value" or "r_squared"
+    r2_rule_met: bool  # R^2 >= r2_min (the standard's acceptance of the cosine fit for B.3.2.1)
+    significant: bool  # a tilt plane exists at 95 % (by the test named in decided_by)
+    decided_by: str  # the test that decided ``significant``, in words
     n: int
+    p_value: float = 1.0  # p-value of that test
 
 
 @dataclass(frozen=True)
@@ -67,15 +68,39 @@ class FourierFit:
     tilt_partial_f: TestResult
     tilt_chi2: Optional[TestResult]  # against the measured noise (dense, when known)
     max_order_allowed: int
+    hac_lags: int = 0  # lags of the HAC covariance (0: the ordinary covariance)
+    residuals: Optional[np.ndarray] = None  # (n,) m, data minus the model at the input points
 
 
 @dataclass(frozen=True)
 class Criterion:
+    """One check. The standard's checks (``clause`` set) decide the overall verdict; screening flags inform.
+
+    verdict: acceptable | exceeds | indeterminate, or not assessed (e.g. no permissible table supplied) and
+    not applicable (e.g. the standard does not accept the cosine fit for B.3.2.1); for a screening flag,
+    exceeds means the flag is raised.
+    """
+
     name: str
-    verdict: str  # acceptable, exceeds, indeterminate
+    verdict: str
     governing: str  # the number that decides, in words
     azimuth_ranges: tuple = ()  # ((start_deg, end_deg), ...) responsible
-    reasons: tuple = ()
+    reasons: tuple = ()  # notes, in words
+    clause: Optional[str] = None  # "B.3.2.1", "B.3.2.2" for the standard's checks; None for screening
+    ratio: Optional[float] = None  # the check's largest ratio (value / allowable), as the clause prescribes
+    ratio_upper95: Optional[float] = None  # its 95 % upper bound from the measurement uncertainty
+    ratio_lower95: Optional[float] = None  # its 95 % lower bound
+    uncertainty: str = ""  # the measurement-uncertainty statement, in words
+    evidence_coverage: Optional[float] = None  # share of the circumference with evidence for this check
+
+    @property
+    def screening(self) -> bool:
+        return self.clause is None
+
+    @property
+    def decides(self) -> bool:
+        """Takes part in the overall verdict."""
+        return self.clause is not None and self.verdict in ("acceptable", "exceeds", "indeterminate")
 
 
 @dataclass(frozen=True)
@@ -95,14 +120,19 @@ class DeflectionCheck:
 
 @dataclass(frozen=True)
 class CurvatureCheck:
-    """Curvature of the Fourier model (modes >= 2) on the evaluation grid against 11 Y / (E H)."""
+    """Curvature of the Fourier model (modes >= 2) smoothed at ``smoothing`` on the evaluation grid, against
+    11 Y / (E H), with pointwise and simultaneous 95 % bands."""
 
     azimuth_deg: np.ndarray  # (g,)
     kappa: np.ndarray  # (g,) 1/m (nan where no data near)
-    kappa_sd: np.ndarray  # (g,) 1/m, 1 sigma
+    kappa_sd: np.ndarray  # (g,) 1/m, 1 sigma (HAC for dense profiles)
     limit: float  # 1/m
-    exceeds: np.ndarray  # (g,) bool
-    indeterminate: np.ndarray  # (g,) bool
+    exceeds: np.ndarray  # (g,) bool: the simultaneous band lies wholly past the limit
+    indeterminate: np.ndarray  # (g,) bool: the simultaneous band straddles the limit
+    smoothing: float = 0.0  # m, spacing of the second difference the curvature is smoothed at (0: none)
+    q_pointwise: float = 1.959963984540054  # quantile of the pointwise 95 % band
+    q_simultaneous: float = 1.959963984540054  # quantile of the simultaneous 95 % band (max-t)
+    assessed: bool = True  # False: no mode above 1 in the model (sparse surveys)
 
 
 @dataclass(frozen=True)
@@ -122,9 +152,26 @@ class SettledArc:
     depth: float  # m below the chord between the two highs
     deepest_deg: float
     depth_sd: float  # m, 1 sigma
-    permissible: Optional[float]  # m, from the table (None outside it)
-    verdict: str  # acceptable, exceeds, indeterminate, outside table
+    permissible: Optional[float]  # m, from the table (None when not judged)
+    verdict: str  # acceptable, exceeds, indeterminate, not covered (outside the table), in a gap, below table,
+    #             not assessed (no table)
     ratio: Optional[float] = None  # depth / permissible
+    ratio_upper95: Optional[float] = None  # (depth + 1.96 sd) / permissible
+
+
+@dataclass(frozen=True)
+class LocalDip:
+    """A dip shorter than the deflection spacing, found in the data (screening)."""
+
+    start_deg: float
+    end_deg: float
+    length: float  # m along the shell
+    depth: float  # m below the long-wave model (wavelengths >= 2 x the deflection spacing)
+    deepest_deg: float
+    depth_sd: float  # m, 1 sigma of the smoothed residual (correlated noise included)
+    threshold: float  # m, depth a dip must exceed to count (simultaneous over the circumference)
+    allowable: float  # m, S_max at half the dip's length (its centre against its ends)
+    ratio: float  # depth / allowable
 
 
 @dataclass(frozen=True)
@@ -148,10 +195,14 @@ class ModelCurve:
 @dataclass(frozen=True)
 class EvaluationSettings:
     order_selection: str
-    tilt_rule: str
     alpha: float
     r2_min: float
     deflection_L: str
+    deflection_spacing: float  # m
+    curvature_smoothing: float  # m
+    min_evidence_coverage: float
+    reading_sigma: Optional[float] = None  # m, 1 sigma of a survey reading used for the uncertainty (surveys)
+    reading_sigma_source: str = ""  # in words
 
 
 @dataclass(frozen=True)
@@ -205,9 +256,11 @@ class Evaluation:
     curvature_sparse: Optional[SurveyCurvature]
     arcs: tuple  # SettledArc
     arc_table: ArcTableInfo
-    criteria: tuple  # Criterion
-    verdict: str
+    criteria: tuple  # Criterion: the standard's checks first, then the screening flags
+    verdict: str  # overall, from the standard's checks only: acceptable | exceeds | indeterminate
+    governing: str  # name of the check that sets the verdict (or why none does)
     adequacy: tuple  # str, warnings about the survey
     warnings: tuple  # str
     settings: EvaluationSettings
+    dips: tuple = ()  # LocalDip
     decimation: Optional[DecimationStudy] = None

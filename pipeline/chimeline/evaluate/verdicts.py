@@ -1,5 +1,9 @@
-"""Verdicts per criterion: 'exceeds' only where the whole 95 % band lies past the limit, 'indeterminate' where
-the band straddles it, 'acceptable' otherwise; the overall verdict is the worst of the criteria."""
+"""Verdicts. The standard's checks show their result as the clause prescribes (ratio <= 1 passes) and beside it
+the measurement uncertainty: 'exceeds' needs the exceedance to stand beyond that uncertainty (the 95 % lower
+bound of the ratio above 1); a ratio above 1 whose lower bound is not is 'indeterminate' (exceedance within
+measurement uncertainty); a ratio at most 1 whose upper bound is above 1 passes with 'margin within measurement
+uncertainty'. Too little evidence (coverage below the configured share of the circumference) makes a check
+indeterminate. Only the standard's checks set the overall verdict."""
 from __future__ import annotations
 
 import numpy as np
@@ -11,37 +15,64 @@ from .results import Criterion
 SEVERITY = {"acceptable": 0, "indeterminate": 1, "exceeds": 2}
 
 
-def banded(value, sd, limit):
-    """Per location: (exceeds, indeterminate) masks of |value| +- Z95 sd against ``limit``."""
-    lo = np.abs(value) - Z95 * sd
-    hi = np.abs(value) + Z95 * sd
-    ex = lo > limit
-    ind = (~ex) & (hi > limit)
-    return ex, ind
+def bounds(value, sd, allowable, q):
+    """(ratio, lower, upper) per location of |value| +- q sd against ``allowable`` (nan where not judged)."""
+    v = np.abs(np.asarray(value, dtype=float))
+    sd = np.asarray(sd, dtype=float)
+    ratio = v / allowable
+    return ratio, (v - q * sd) / allowable, (v + q * sd) / allowable
 
 
-def criterion(name, az, value, sd, limit, what, extra_reasons=(), force_indeterminate=False):
-    """(Criterion, ratio, exceeds, indeterminate) of ``value`` (nan where not judged) against ``limit``."""
-    ok = np.isfinite(value)
-    ex, ind = banded(np.where(ok, value, 0), np.where(ok, sd, 0), limit)
-    ex &= ok
-    ind &= ok
-    ratio = np.where(ok, np.abs(value) / limit, np.nan)
-    k = int(np.nanargmax(ratio)) if ok.any() else 0
-    gov = f"max {what} ratio {ratio[k]:.2f} at {az[k]:.1f} deg" if ok.any() else "no values"
-    if ex.any():
-        verdict, rng = "exceeds", run_ranges(az, ex)
-    elif ind.any() or force_indeterminate:
-        verdict, rng = "indeterminate", run_ranges(az, ind)
+def judge(name, az, ratio, lower, upper, *, clause=None, what="ratio", reasons=(), coverage=None,
+          min_coverage=0.0, force_indeterminate=None) -> Criterion:
+    """A criterion from per-location ratios and their 95 % bounds (nan where not judged)."""
+    ok = np.isfinite(ratio)
+    reasons = list(reasons)
+    if not ok.any():
+        return Criterion(name, "indeterminate", "no values to judge", (), tuple(reasons + ["no location could be "
+                         "judged"]), clause=clause, evidence_coverage=coverage)
+    r = np.where(ok, ratio, -np.inf)
+    k = int(np.argmax(r))
+    rmax, up, lo = float(ratio[k]), float(np.nanmax(upper)), float(np.nanmax(lower))
+    exceeds = ok & (lower > 1.0)
+    over = ok & (ratio > 1.0)
+    if exceeds.any():
+        verdict, where = "exceeds", run_ranges(az, exceeds)
+        unc = f"exceedance beyond measurement uncertainty (95 % lower bound of the ratio {lo:.3g} > 1)"
+    elif over.any():
+        verdict, where = "indeterminate", run_ranges(az, over)
+        unc = (f"exceedance within measurement uncertainty: ratio {rmax:.3g} > 1 but its 95 % lower bound "
+               f"{lo:.3g} is not")
     else:
-        verdict, rng = "acceptable", ()
-    return Criterion(name, verdict, gov, rng, tuple(extra_reasons)), ratio, ex, ind
+        verdict, where = "acceptable", ()
+        unc = (f"margin within measurement uncertainty: the 95 % upper bound {up:.3g} is above 1"
+               if up > 1.0 else f"the 95 % upper bound {up:.3g} also passes")
+    if coverage is not None and coverage < min_coverage and verdict != "exceeds":
+        verdict = "indeterminate"
+        reasons.append(f"evidence covers {100 * coverage:.1f} % of the circumference, below "
+                       f"evaluate.min_evidence_coverage = {100 * min_coverage:.0f} %")
+    if force_indeterminate and verdict == "acceptable":
+        verdict = "indeterminate"
+        reasons.append(force_indeterminate)
+    gov = f"max {what} {rmax:.3g} at {az[k]:.1f} deg (95 % upper bound {up:.3g})"
+    return Criterion(name, verdict, gov, where, tuple(reasons), clause=clause, ratio=rmax, ratio_upper95=up,
+                     ratio_lower95=lo, uncertainty=unc, evidence_coverage=coverage)
 
 
-def arc_verdict(depth, depth_sd, permissible):
-    lo, hi = depth - Z95 * depth_sd, depth + Z95 * depth_sd
-    return "exceeds" if lo > permissible else ("indeterminate" if hi > permissible else "acceptable")
+def overall(criteria) -> tuple[str, str]:
+    """(verdict, governing check) from the standard's checks that could be made."""
+    deciding = [c for c in criteria if c.decides]
+    if not deciding:
+        why = "; ".join(f"{c.name}: {c.verdict}" for c in criteria if c.clause is not None)
+        return "indeterminate", f"none of the standard's checks could be made ({why})"
+    worst = max(deciding, key=lambda c: (SEVERITY[c.verdict], c.ratio if c.ratio is not None else -1.0))
+    return worst.verdict, worst.name
 
 
-def overall(criteria) -> str:
-    return max((c.verdict for c in criteria), key=SEVERITY.get)
+def banded(value, sd, limit):
+    """Per location: (exceeds, indeterminate) masks of |value| +- Z95 sd against ``limit`` (construction
+    tolerances of the shell geometry use this band rule)."""
+    lo = np.abs(value) - Z95 * np.asarray(sd)
+    hi = np.abs(value) + Z95 * np.asarray(sd)
+    ex = lo > limit
+    return ex, (~ex) & (hi > limit)

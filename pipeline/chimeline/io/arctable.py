@@ -17,6 +17,8 @@ from ..errors import ConfigError
 from ..units import to_metres
 
 DEMO_TABLE_SOURCE = "packaged demo table"
+#: the config value that selects the packaged ILLUSTRATIVE table (``evaluate.arc_table``)
+DEMO_TABLE_KEY = "illustrative-demo"
 
 
 @dataclass(frozen=True)
@@ -43,15 +45,18 @@ class ArcTable:
         return cands[0].arc, cands[0].depth
 
 
-def load_arc_table(path=None) -> ArcTable:
-    """The table at ``path``, or the packaged ILLUSTRATIVE demo table when ``path`` is None."""
+def load_arc_table(path=None) -> Optional[ArcTable]:
+    """The table at ``path``; the packaged ILLUSTRATIVE demo table for ``illustrative-demo``; None for None."""
     if path is None:
+        return None
+    if path == DEMO_TABLE_KEY:
         text = importlib.resources.files("chimeline").joinpath("data/arc_table_demo.yaml").read_text()
         src = DEMO_TABLE_SOURCE
     else:
         p = Path(path)
-        if not p.exists():
-            raise ConfigError(f"evaluate.arc_table: {p}: file not found")
+        if not p.is_file():
+            raise ConfigError(f"evaluate.arc_table: {p}: {'is a folder, not a table file' if p.is_dir() else 'file not found'}"
+                              f" (give a YAML table, or {DEMO_TABLE_KEY} for the packaged illustrative one)")
         text = read_yaml_text(p, "arc table")
         src = str(p)
     try:

@@ -13,6 +13,7 @@ and says which, with ``metres_per_unit`` to convert.
 from __future__ import annotations
 
 import csv
+import dataclasses
 import datetime
 import hashlib
 import io
@@ -28,7 +29,8 @@ import numpy as np
 
 from ..config import parse_yaml
 from ..errors import ConfigError, InputError, OutputError, clip_repr
-from ..units import LENGTH_FACTORS
+from ..notices import CAUTION
+from ..units import LENGTH_FACTORS, UNIT_LABELS
 from ..version import __version__
 
 PROFILE_CSV = "profile.csv"
@@ -49,13 +51,35 @@ MANIFEST_FORMAT = "chimeline-folder/1"
 #: largest JSON, CSV or YAML file read back from a folder
 MAX_FILE_BYTES = 256 << 20
 
+#: columns of profile.csv; lengths carry the unit as a suffix in the header (elevation_m, std_error_ft, ...)
 PROFILE_COLUMNS = ("azimuth_deg", "elevation", "std_error", "n_points", "n_rejected", "n_stations", "n_eff",
                    "scale", "status")
+PROFILE_LENGTHS = ("elevation", "std_error", "scale")
 RESIDUAL_COLUMNS = ("azimuth_deg", "station", "bin", "residual")
+RESIDUAL_LENGTHS = ("residual",)
 
 
-def _fmt(v, spec):
-    return format(v, spec) if np.isfinite(v) else ""
+def unit_column(name: str, units: str) -> str:
+    """A length column's header with its unit: elevation -> elevation_m."""
+    return f"{name}_{units}"
+
+
+def split_unit(header: str):
+    """(name, unit) of a header like elevation_us_ft; (header, None) when it carries no known unit."""
+    for u in sorted(LENGTH_FACTORS, key=len, reverse=True):
+        if header.endswith("_" + u):
+            return header[: -len(u) - 1], u
+    return header, None
+
+
+def _caution_line() -> str:
+    return f"# Caution: {CAUTION}\n"
+
+
+def _fmt(v) -> str:
+    """Full precision ('' where not finite)."""
+    v = float(v)
+    return repr(v) if np.isfinite(v) else ""
 
 
 @dataclass(frozen=True)
@@ -71,29 +95,33 @@ class ProfileTable:
     n_eff: np.ndarray  # (n_bins,) nan where no value
     scale: np.ndarray  # (n_bins,) robust scale of the kept points, nan where fewer than two
     status: np.ndarray  # (n_bins,) str: ok, sparse, suspect, empty
+    units: str = "m"  # unit of the lengths (elevation, std_error, scale); "" when read from bare headers
 
     def to_csv(self) -> str:
+        """Full precision; length headers carry the unit; a comment line states units and the caution."""
         buf = io.StringIO()
+        buf.write(f"# chimeline junction profile; lengths in {UNIT_LABELS.get(self.units, self.units)} (scan datum); "
+                  f"azimuth_deg: bin centre, degrees clockwise from the frame's reference; std_error: 1 sigma\n")
+        buf.write(_caution_line())
         w = csv.writer(buf, lineterminator="\n")
-        w.writerow(PROFILE_COLUMNS)
+        w.writerow([unit_column(c, self.units) if c in PROFILE_LENGTHS else c for c in PROFILE_COLUMNS])
         for i in range(len(self.azimuth_deg)):
-            fin = np.isfinite(self.elevation[i])
-            w.writerow([f"{self.azimuth_deg[i]:.4f}", f"{self.elevation[i]:.5f}" if fin else "",
-                        f"{self.std_error[i]:.6f}" if fin else "", int(self.n_points[i]), int(self.n_rejected[i]),
-                        int(self.n_stations[i]), _fmt(self.n_eff[i], ".2f"), _fmt(self.scale[i], ".6f"),
-                        self.status[i]])
+            w.writerow([_fmt(self.azimuth_deg[i]), _fmt(self.elevation[i]), _fmt(self.std_error[i]),
+                        int(self.n_points[i]), int(self.n_rejected[i]), int(self.n_stations[i]), _fmt(self.n_eff[i]),
+                        _fmt(self.scale[i]), self.status[i]])
         return buf.getvalue()
 
     @classmethod
     def from_csv(cls, text: str, source) -> "ProfileTable":
-        rows = _rows(text, source, PROFILE_COLUMNS)
-        num = lambda c, i, r: _cell(r, c, i, source, empty_ok=True)  # noqa: E731
+        rows, names, units = _unit_rows(text, source, PROFILE_COLUMNS, PROFILE_LENGTHS)
+        num = lambda c, i, r: _cell(r, names[c], i, source, empty_ok=True)  # noqa: E731
         cols = {c: np.array([num(c, i, r) for i, r in enumerate(rows, start=2)]) for c in PROFILE_COLUMNS[:-1]}
         return cls(azimuth_deg=cols["azimuth_deg"], elevation=cols["elevation"], std_error=cols["std_error"],
                    n_points=np.nan_to_num(cols["n_points"]).astype(int),
                    n_rejected=np.nan_to_num(cols["n_rejected"]).astype(int),
                    n_stations=np.nan_to_num(cols["n_stations"]).astype(int), n_eff=cols["n_eff"],
-                   scale=cols["scale"], status=np.array([(r.get("status") or "").strip() for r in rows], dtype=str))
+                   scale=cols["scale"], status=np.array([(r.get("status") or "").strip() for r in rows], dtype=str),
+                   units=units or "")
 
 
 @dataclass(frozen=True)
@@ -104,36 +132,54 @@ class ResidualTable:
     station: np.ndarray  # (m,) int
     bin: np.ndarray  # (m,) int
     residual: np.ndarray  # (m,)
+    units: str = "m"  # unit of the residuals
 
     def to_csv(self) -> str:
         buf = io.StringIO()
+        buf.write(f"# kept junction points' residuals about their bin line; lengths in "
+                  f"{UNIT_LABELS.get(self.units, self.units)}\n")
         w = csv.writer(buf, lineterminator="\n")
-        w.writerow(RESIDUAL_COLUMNS)
+        w.writerow([unit_column(c, self.units) if c in RESIDUAL_LENGTHS else c for c in RESIDUAL_COLUMNS])
         for a, s, b, r in zip(self.azimuth_deg, self.station, self.bin, self.residual):
-            w.writerow([f"{a:.4f}", int(s), int(b), f"{r:.7f}"])
+            w.writerow([_fmt(a), int(s), int(b), _fmt(r)])
         return buf.getvalue()
 
     @classmethod
     def from_csv(cls, text: str, source) -> "ResidualTable":
-        rows = _rows(text, source, RESIDUAL_COLUMNS)
-        col = {c: np.array([_cell(r, c, i, source) for i, r in enumerate(rows, start=2)]) for c in RESIDUAL_COLUMNS}
+        rows, names, units = _unit_rows(text, source, RESIDUAL_COLUMNS, RESIDUAL_LENGTHS)
+        col = {c: np.array([_cell(r, names[c], i, source) for i, r in enumerate(rows, start=2)])
+               for c in RESIDUAL_COLUMNS}
         return cls(azimuth_deg=col["azimuth_deg"], station=col["station"].astype(int), bin=col["bin"].astype(int),
-                   residual=col["residual"])
+                   residual=col["residual"], units=units or "")
 
 
-def _rows(text, source, columns):
+def _unit_rows(text, source, columns, lengths):
+    """Rows, {column: header as found}, and the unit the length headers carry (None for bare headers)."""
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     if not lines:
         raise InputError(f"{source}: the file is empty")
     try:
-        rows = list(csv.DictReader(lines))
-        header = rows[0].keys() if rows else next(csv.reader(lines[:1]))
+        header = next(csv.reader(lines[:1]))
     except csv.Error as exc:
         raise InputError(f"{source}: not a readable CSV table ({str(exc)[:100]})") from None
-    missing = [c for c in columns if c not in header]
+    names, units = {}, set()
+    for h in header:
+        base, u = split_unit(h.strip())
+        if base in lengths and u is not None:
+            names[base] = h
+            units.add(u)
+        elif h.strip() in columns:
+            names[h.strip()] = h
+    missing = [c for c in columns if c not in names]
     if missing:
         raise InputError(f"{source}: missing column(s) {', '.join(missing)}")
-    return rows
+    if len(units) > 1:
+        raise InputError(f"{source}: the length columns carry different units ({', '.join(sorted(units))})")
+    try:
+        rows = list(csv.DictReader(lines))
+    except csv.Error as exc:
+        raise InputError(f"{source}: not a readable CSV table ({str(exc)[:100]})") from None
+    return rows, names, (units.pop() if units else None)
 
 
 def _cell(row, col, i, source, empty_ok=False):
@@ -402,6 +448,10 @@ def _read_run_folder(d: Path, need_config: bool, last: bool) -> RunFolder:
             listed = manifest.files
         summary = _check_summary(_parse_json(raw(PROFILE_JSON, required=True), d / PROFILE_JSON), d / PROFILE_JSON)
         profile = ProfileTable.from_csv(_decode(raw(PROFILE_CSV, required=True), d / PROFILE_CSV), d / PROFILE_CSV)
+        if profile.units and profile.units != summary["units"]:
+            raise InputError(f"{d / PROFILE_CSV}: its columns are in {profile.units} but {d / PROFILE_JSON} says units "
+                             f"{summary['units']!r}")
+        profile = dataclasses.replace(profile, units=summary["units"])
         rb = raw(RESIDUALS_CSV)
         residuals = ResidualTable.from_csv(_decode(rb, d / RESIDUALS_CSV), d / RESIDUALS_CSV) if rb is not None else None
         cb = raw(CONFIG_YAML)

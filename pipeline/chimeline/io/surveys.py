@@ -3,7 +3,8 @@
 Survey layouts (header names, any order, case-insensitive):
 - ``azimuth_deg, elevation`` [``label``] [``std_error``]
 - ``x, y, z`` [``label``]: azimuths (clockwise from +Y) about ``evaluate.survey_center`` or a fitted circle
-- ``point, elevation`` [``label``]: point numbers 1..N equally spaced clockwise from ``evaluate.start_azimuth_deg``
+- ``point, elevation`` [``label``]: point numbers 1..N equally spaced clockwise from ``evaluate.start_azimuth_deg``,
+  N = ``evaluate.survey_points`` (default: the highest number), so a missing point stays missing
 Lengths are converted to metres with ``evaluate.input_units`` or the sibling profile.json's ``units``.
 """
 from __future__ import annotations
@@ -19,7 +20,7 @@ from scipy.optimize import least_squares
 
 from ..errors import ConfigError, InputError, clip_repr
 from ..units import to_metres
-from .runfiles import PROFILE_JSON, read_summary
+from .runfiles import PROFILE_JSON, read_summary, split_unit
 
 
 @dataclass(frozen=True)
@@ -87,8 +88,19 @@ def read_survey(path, cfg) -> SurveyData:
         raise InputError(f"{path}: not a readable CSV table ({str(exc)[:100]})") from None
     if not rows:
         raise InputError(f"{path}: no data rows below the header")
-    cols = {c.strip().lower(): c for c in rows[0].keys() if c is not None}
-    units, noise = _units(path, cfg)
+    cols, header_units = {}, set()
+    for c in rows[0].keys():
+        if c is None:
+            continue
+        base, u = split_unit(c.strip().lower())
+        if u is not None and base in ("elevation", "std_error", "x", "y", "z"):
+            header_units.add(u)
+            cols[base] = c
+        else:
+            cols[c.strip().lower()] = c
+    if len(header_units) > 1:
+        raise InputError(f"{path}: the length columns carry different units ({', '.join(sorted(header_units))})")
+    units, noise = _units(path, cfg, header_units.pop() if header_units else None)
     f = to_metres(units)
     dense = "status" in cols
     label, se = [], []
@@ -139,7 +151,9 @@ def read_survey(path, cfg) -> SurveyData:
             pts.append(int(p))
             z.append(e * f)
             label.append(_text(r, cols, "label", path, i) if "label" in cols else str(int(p)))
-        n = max(pts)
+        n = cfg.survey_points or max(pts)
+        if max(pts) > n:
+            raise InputError(f"{path}: point {max(pts)} is beyond evaluate.survey_points = {n}")
         if len(set(pts)) != len(pts):
             dup = sorted({p for p in pts if pts.count(p) > 1})[0]
             raise InputError(f"{path}: point {dup} appears more than once")
@@ -168,7 +182,9 @@ def read_survey(path, cfg) -> SurveyData:
                       source=str(path), noise_sigma=noise, n_dropped=dropped)
 
 
-def _units(path: Path, cfg):
+def _units(path: Path, cfg, header_unit=None):
+    """The input's length unit: from a unit suffix in the header (elevation_ft), evaluate.input_units or the
+    sibling profile.json; any two that disagree are an error."""
     side = path.with_name(PROFILE_JSON)
     side_units, noise = None, None
     if side.exists():
@@ -178,14 +194,21 @@ def _units(path: Path, cfg):
         n = n.get("sigma") if isinstance(n, dict) else None
         ok = isinstance(n, (int, float)) and not isinstance(n, bool) and math.isfinite(n) and n > 0
         noise = float(n) * to_metres(side_units) if ok else None
+    if header_unit is not None:
+        if cfg.input_units != "auto" and cfg.input_units != header_unit:
+            raise ConfigError(f"evaluate.input_units is {cfg.input_units!r} but the columns of {path} are in "
+                              f"{header_unit!r}")
+        if side_units and side_units != header_unit:
+            raise InputError(f"{path}: its columns are in {header_unit!r} but {side} says units {side_units!r}")
+        return header_unit, noise
     if cfg.input_units != "auto":
         if side_units and side_units != cfg.input_units:
             raise ConfigError(f"evaluate.input_units is {cfg.input_units!r} but {side} says units {side_units!r}")
         return cfg.input_units, noise
     if side_units:
         return side_units, noise
-    raise ConfigError(f"{path}: the length unit is unknown: set evaluate.input_units (m, mm, ft, us_ft, in) "
-                      f"or keep the run's profile.json beside the profile")
+    raise ConfigError(f"{path}: the length unit is unknown: set evaluate.input_units (m, mm, ft, us_ft, in), "
+                      f"name the columns with their unit (elevation_ft), or keep the run's profile.json beside it")
 
 
 def _fit_circle(xy, path):

@@ -1,13 +1,14 @@
 """compare.html: noise per run and station with intervals, the equal-noise tests, profile differences."""
 from __future__ import annotations
 
-import html
-
 import numpy as np
 
 from ..core.robust import Z95
 from ..io.atomic import json_text
-from .html import CSS, embed_png
+from ..notices import CAUTION
+from ..version import __version__
+from .console import p_text
+from .html import png_data_uri, template_env
 from .mpl import BAND, INK, LIMIT, MEASURED, new_figure, png_bytes
 
 
@@ -50,56 +51,57 @@ def _diff_fig(p):
 
 
 def render_compare(result) -> str:
-    e = html.escape
-    out = ["<!doctype html><html lang='en'><head><meta charset='utf-8'><title>chimeline compare</title>",
-           f"<style>{CSS}</style></head><body><h1>Scanner setup comparison</h1>",
-           "<div class='caution'><b>Caution.</b> QA figures assist a qualified engineer; they are not a "
-           "fitness-for-service determination.</div>",
-           "<h2>Noise per run</h2><table><tr><th>run</th><th>tag</th><th>date</th><th>sigma</th><th>95 % CI</th><th>dof</th></tr>"]
-    for r in result["runs"]:
-        out.append(f"<tr><td>{e(r['dir'])}</td><td>{e(r['tag'])}</td><td>{e(r['date'])}</td><td>{r['sigma'] * 1e3:.3f} mm</td>"
-                   f"<td>{r['ci'][0] * 1e3:.3f} - {r['ci'][1] * 1e3:.3f} mm</td><td>{r['dof']}</td></tr>")
-    out.append("</table>")
-    out.append(f"<figure>{embed_png(_noise_fig(result), 'noise per run and station', 'noise')}</figure>")
-    out.append("<h2>Tests against the reference (first run)</h2><table><tr><th>run</th><th>sigma ratio</th>"
-               "<th>95 % CI</th><th>F test p</th><th>Brown-Forsythe p</th><th>noise differs</th></tr>")
+    pairs = []
     for p in result["pairs"]:
         n = p["noise"]
         bf = n.get("brown_forsythe", {}).get("p_value")
-        out.append(f"<tr><td>{e(p['run'])}</td><td>{n['sigma_ratio']:.3f}</td><td>{n['ratio_ci95'][0]:.3f} - "
-                   f"{n['ratio_ci95'][1]:.3f}</td><td>{n['p_value']:.3g}</td><td>{'-' if bf is None else f'{bf:.3g}'}</td>"
-                   f"<td>{'yes' if n['noise_differs'] else 'no'}</td></tr>")
-    out.append("</table>")
-    for p in result["pairs"]:
+        eq = n.get("equivalence", {})
         pd = p["profile"]
-        if "mean_difference" not in pd:
-            out.append(f"<p>{e(p['run'])}: {e(pd.get('note', 'too few common azimuths'))}</p>")
-            continue
-        out.append(f"<h2>Profile difference: {e(p['run'])} minus reference</h2>"
-                   f"<p>{pd['n_common']} common bins; weighted mean {pd['mean_difference'] * 1e3:.2f} mm "
-                   f"&plusmn; {pd['mean_difference_se'] * 1e3:.2f} mm (1 sigma, with both datums); RMS about the mean "
-                   f"{pd['rms_difference'] * 1e3:.2f} mm; consistency chi-square p = {pd['consistency_p']:.3g}"
-                   + (f"; {pd['years']:.2f} years apart: {pd['rate_per_year'] * 1e3:.2f} &plusmn; "
-                      f"{pd['rate_per_year_se'] * 1e3:.2f} mm per year" if "rate_per_year" in pd else "") + "</p>")
-        out.append(f"<figure>{embed_png(_diff_fig(p), 'profile difference', 'difference')}</figure>")
-    out.append("</body></html>")
-    return "\n".join(out)
+        if "mean_difference" in pd:
+            text = (f"{pd['n_common']} common bins; weighted mean difference {pd['mean_difference'] * 1e3:+.2f} mm "
+                    f"+- {pd['mean_difference_se'] * 1e3:.2f} mm (1 sigma, with both datums); RMS about the mean "
+                    f"{pd['rms_difference'] * 1e3:.2f} mm; consistency chi-square {p_text(pd['consistency_p'])}")
+            if "rate_per_year" in pd:
+                text += (f"; {pd['years']:.2f} years apart: {pd['rate_per_year'] * 1e3:+.2f} +- "
+                         f"{pd['rate_per_year_se'] * 1e3:.2f} mm per year")
+        else:
+            text = pd.get("note", "too few common azimuths")
+        pairs.append({"run": p["run"], "words": n.get("in_words", ""), "ratio": f"{n['sigma_ratio']:.3f}",
+                      "ci": f"{n['ratio_ci95'][0]:.3f} - {n['ratio_ci95'][1]:.3f}", "p": p_text(n["p_value"]),
+                      "bf": "-" if bf is None else p_text(bf),
+                      "eq": (("yes, " if eq.get("equivalent") else "not shown, ") + p_text(eq.get("p_value"))) if eq else "-",
+                      "differs": "yes" if n["noise_differs"] else "no",
+                      "stations": [{"station": x["station"], "ratio": f"{x['sigma_ratio']:.3f}",
+                                    "ci": f"{x['ratio_ci95'][0]:.3f} - {x['ratio_ci95'][1]:.3f}",
+                                    "p": p_text(x["p_value"])} for x in n.get("stations", [])],
+                      "profile_text": text, "consistency_note": pd.get("consistency_note"),
+                      "diff_fig": png_data_uri(_diff_fig(p)) if "mean_difference" in pd else None})
+    runs = [{"dir": r["dir"], "setup": r.get("setup") or "-", "tag": r["tag"] or "-", "date": r["date"] or "-",
+             "sigma": f"{r['sigma'] * 1e3:.3f} mm", "ci": f"{r['ci'][0] * 1e3:.3f} - {r['ci'][1] * 1e3:.3f} mm",
+             "dof": r["dof"]} for r in result["runs"]]
+    return template_env().get_template("compare.html.j2").render(
+        version=__version__, alpha=result["alpha"], margin_pct=f"{100 * result.get('margin', 0.1):.0f}",
+        caution=CAUTION, pairs=pairs, runs=runs, noise_fig=png_data_uri(_noise_fig(result)))
 
 
 def compare_outputs(result) -> tuple[dict, dict]:
     """({relative path: text}, compare.json mapping) of a comparison."""
     runs, pairs = result["runs"], result["pairs"]
-    js = {"alpha": result["alpha"], "units_note": "all lengths in metres",
-          "runs": [{"dir": r["dir"], "tag": r["tag"], "survey_date": r["date"], "sigma": r["sigma"], "ci95": list(r["ci"]),
-                    "dof": r["dof"], "stations": r["stations"]} for r in runs],
+    js = {"caution": CAUTION, "software": {"name": "chimeline", "version": __version__}, "alpha": result["alpha"],
+          "equivalence_margin": result.get("margin"), "units": "m", "units_note": "all lengths in metres",
+          "answers": [p["noise"].get("in_words", "") for p in pairs],
+          "runs": [{"dir": r["dir"], "setup": r.get("setup", ""), "tag": r["tag"], "survey_date": r["date"],
+                    "sigma": r["sigma"], "ci95": list(r["ci"]), "dof": r["dof"], "stations": r["stations"]}
+                   for r in runs],
           "pairs": [{"reference": p["reference"], "run": p["run"], "same_tank": p["same_tank"], "noise": p["noise"],
                      "profile": {k: v for k, v in p["profile"].items() if not isinstance(v, np.ndarray)}} for p in pairs]}
-    lines = ["run,station,sigma_m,ci95_lo_m,ci95_hi_m,dof"]
+    lines = ["# chimeline QA comparison: noise per run and station, lengths in metres", f"# Caution: {CAUTION}",
+             "run,station,sigma_m,ci95_lo_m,ci95_hi_m,dof"]
     for r in runs:
-        lines.append(f"{r['dir']},all,{r['sigma']:.7f},{r['ci'][0]:.7f},{r['ci'][1]:.7f},{r['dof']}")
+        lines.append(f"{r['dir']},all,{r['sigma']!r},{r['ci'][0]!r},{r['ci'][1]!r},{r['dof']}")
         for st in r["stations"]:
             if st["sigma"] is not None:
-                lines.append(f"{r['dir']},{st['station']},{st['sigma']:.7f},{st['ci'][0]:.7f},{st['ci'][1]:.7f},"
+                lines.append(f"{r['dir']},{st['station']},{st['sigma']!r},{st['ci'][0]!r},{st['ci'][1]!r},"
                              f"{st['dof']}")
     files = {"compare.json": json_text(js), "compare.csv": "\n".join(lines) + "\n",
              "compare.html": render_compare(result)}

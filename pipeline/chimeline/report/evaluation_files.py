@@ -15,127 +15,172 @@ from ..io.runfiles import CONFIG_YAML, EVALUATION_JSON
 from ..notices import CAUTION
 from ..units import UNIT_LABELS, to_metres
 from ..version import __version__
+from .console import r2_rule_text
 from .html import evaluation_figures, render_report
 
 
-def _n(v, d=7):
+def _n(v):
+    """A float at full precision for JSON, None where not finite."""
     if v is None:
         return None
     v = float(v)
-    return round(v, d) if np.isfinite(v) else None
+    return v if np.isfinite(v) else None
+
+
+def _c(v) -> str:
+    """A float at full precision for CSV ('' where not finite)."""
+    v = float(v)
+    return repr(v) if np.isfinite(v) else ""
 
 
 def _test(t):
     if t is None:
         return None
-    return {"name": t.name, "statistic": _n(t.statistic, 6), "p_value": float(f"{t.p_value:.6g}"),
-            "df": list(t.df), "reject_null": t.reject}
+    return {"name": t.name, "statistic": _n(t.statistic), "p_value": _n(t.p_value), "df": list(t.df),
+            "reject_null": t.reject}
+
+
+def _criterion(c) -> dict:
+    d = {"name": c.name}
+    if c.clause is not None:
+        d["clause"] = c.clause
+    else:
+        d["screening"] = True
+    d.update({"verdict": c.verdict, "ratio": _n(c.ratio), "ratio_upper95": _n(c.ratio_upper95),
+              "ratio_lower95": _n(c.ratio_lower95), "uncertainty": c.uncertainty, "governing": c.governing,
+              "azimuth_ranges_deg": [[_n(a), _n(b)] for a, b in c.azimuth_ranges],
+              "evidence_coverage": _n(c.evidence_coverage), "notes": list(c.reasons)})
+    return d
 
 
 def evaluation_summary(ev, units) -> dict:
     f = to_metres(units)
-    L = lambda v: _n(np.asarray(v) / f)
+    L = lambda v: _n(np.asarray(v) / f)  # noqa: E731
     t, F, s = ev.tilt, ev.fourier, ev.survey
     d = ev.deflection
     pts = []
     cs = ev.curvature_sparse
     for i in range(len(s.azimuth_deg)):
-        row = {"azimuth_deg": _n(s.azimuth_deg[i], 4), "label": s.label[i], "elevation": L(s.elevation[i]),
+        row = {"azimuth_deg": _n(s.azimuth_deg[i]), "label": s.label[i], "elevation": L(s.elevation[i]),
                "out_of_plane": L(ev.out_of_plane[i]), "deflection": L(d.S[i]),
-               "deflection_sd": L(d.S_sd[i]), "allowable": L(d.allowable[i]), "ratio": _n(d.ratio[i], 4)}
+               "deflection_sd": L(d.S_sd[i]), "allowable": L(d.allowable[i]), "ratio": _n(d.ratio[i])}
         if cs is not None:  # second-difference curvature at the survey points, per unit length
-            row["curvature_second_difference"] = _n(cs.kappa[i] * f, 9)
+            row["curvature_second_difference"] = _n(cs.kappa[i] * f)
         pts.append(row)
     tk = ev.tank
-    crit = [{"name": c.name, "verdict": c.verdict, "governing": c.governing,
-             "azimuth_ranges_deg": [[_n(a, 2), _n(b, 2)] for a, b in c.azimuth_ranges], "notes": list(c.reasons)}
-            for c in ev.criteria]
+    c = ev.curvature
+    lo_pw, hi_pw = c.kappa - c.q_pointwise * c.kappa_sd, c.kappa + c.q_pointwise * c.kappa_sd
+    lo_s, hi_s = c.kappa - c.q_simultaneous * c.kappa_sd, c.kappa + c.q_simultaneous * c.kappa_sd
+    fin = np.isfinite(c.kappa)
     out = {
         "units": units, "units_label": UNIT_LABELS.get(units, units),
         "software": {"name": "chimeline", "version": __version__},
+        "caution": CAUTION,
+        "verdict": ev.verdict,
+        "governing": ev.governing,
+        "verdict_basis": "the overall verdict comes from the standard's checks (B.3.2.1, B.3.2.2) only; screening "
+                         "flags inform and never set it; exceeds needs the exceedance to stand beyond the measurement "
+                         "uncertainty (95 % lower bound of the ratio above 1)",
+        "criteria": [_criterion(x) for x in ev.criteria],
         "input": {"source": s.source, "dense": s.dense, "n_points": len(s.azimuth_deg), "bins_without_value": s.n_dropped},
         "tank": {"diameter": L(tk.diameter), "diameter_source": tk.diameter_source, "shell_height": L(tk.shell_height),
-                 "yield_strength_MPa": _n(tk.yield_strength / 1e6, 3), "youngs_modulus_GPa": _n(tk.youngs_modulus / 1e9, 3),
+                 "yield_strength_MPa": _n(tk.yield_strength / 1e6), "youngs_modulus_GPa": _n(tk.youngs_modulus / 1e9),
                  "roof": tk.roof},
-        "tilt": {"r_squared": _n(t.r_squared, 6), "p_value": float(f"{t.f_test.p_value:.6g}"), "f_test": _test(t.f_test),
-                 "amplitude": L(t.amplitude), "low_azimuth_deg": _n(t.low_azimuth_deg, 3), "significant": t.significant,
-                 "decided_by": t.decided_by, "r2_rule_met": t.r2_rule_met,
+        "tilt": {"r_squared": _n(t.r_squared), "r2_min": ev.settings.r2_min, "r2_rule_met": t.r2_rule_met,
+                 "r2_rule": r2_rule_text(ev), "p_value": _n(t.p_value), "decided_by": t.decided_by,
+                 "significant": t.significant, "cosine_f_test": _test(t.f_test),
+                 "amplitude": L(t.amplitude), "low_azimuth_deg": _n(t.low_azimuth_deg),
                  "coefficients": {"a": L(t.a), "b_cos": L(t.b), "c_sin": L(t.c)},
                  "note": "R^2 is what the standard asks; the p-value says whether a tilt plane is statistically real"},
         "modes": {"order": F.order, "selection": F.selection, "weighted": F.weighted, "max_order_allowed": F.max_order_allowed,
+                  "hac_lags": F.hac_lags,
                   "coefficients": [{"k": (i + 1) // 2, "term": "const" if i == 0 else ("cos" if i % 2 else "sin"),
                                     "value": L(F.coef[i]), "std_error": L(F.std_err[i])} for i in range(len(F.coef))],
                   "tilt_partial_f": _test(F.tilt_partial_f), "tilt_chi2_vs_noise": _test(F.tilt_chi2),
                   "df_resid": F.df_resid},
         "out_of_plane_reference": ev.out_of_plane_reference,
-        "curvature": {"limit_per_m": _n(ev.curvature.limit, 9),
-                      "max_abs_per_m": _n(np.nanmax(np.abs(ev.curvature.kappa)), 9),
-                      "max_ratio": _n(np.nanmax(np.abs(ev.curvature.kappa)) / ev.curvature.limit, 4)},
+        "curvature": {"assessed": c.assessed, "limit_per_m": _n(c.limit), "smoothing_m": _n(c.smoothing),
+                      "max_abs_per_m": _n(np.nanmax(np.abs(c.kappa))) if fin.any() else None,
+                      "max_ratio": _n(np.nanmax(np.abs(c.kappa)) / c.limit) if fin.any() else None,
+                      "q_pointwise": _n(c.q_pointwise), "q_simultaneous": _n(c.q_simultaneous),
+                      "curve": {"azimuth_deg": [_n(v) for v in c.azimuth_deg],
+                                "kappa_per_m": [_n(v) for v in c.kappa],
+                                "kappa_sd_per_m": [_n(v) for v in c.kappa_sd],
+                                "pointwise95_per_m": [[_n(a), _n(b)] for a, b in zip(lo_pw, hi_pw)],
+                                "simultaneous95_per_m": [[_n(a), _n(b)] for a, b in zip(lo_s, hi_s)]}},
+        "model": {"note": "out-of-plane modes k >= 2 of the Fourier model on the evaluation grid, with 1 sigma",
+                  "azimuth_deg": [_n(v) for v in ev.model.azimuth_deg], "out_of_plane": [L(v) for v in ev.model.value],
+                  "sd": [L(v) for v in ev.model.sd]},
         "arcs": [_arc(a, f) for a in ev.arcs],
         "arc_table": {"title": ev.arc_table.title, "source": ev.arc_table.source,
                       "illustrative": ev.arc_table.illustrative},
-        "criteria": crit,
-        "verdict": ev.verdict,
+        "dips": [{"start_deg": _n(x.start_deg), "end_deg": _n(x.end_deg), "length": L(x.length), "depth": L(x.depth),
+                  "deepest_deg": _n(x.deepest_deg), "depth_sd": L(x.depth_sd), "threshold": L(x.threshold),
+                  "allowable": L(x.allowable), "ratio": _n(x.ratio)} for x in ev.dips],
         "points": pts,
         "survey_adequacy": list(ev.adequacy),
         "warnings": list(ev.warnings),
-        "settings": asdict(ev.settings),
-        "caution": CAUTION,
+        "settings": {k: (_n(v) if isinstance(v, float) else v) for k, v in asdict(ev.settings).items()},
     }
     if ev.decimation is not None:
-        d = ev.decimation
-        if d.runs:
-            dec = {"n_points": d.n_points, "starts": len(d.runs), "max_deflection_ratio": d.max_deflection_ratio,
-                   "r_squared": d.r_squared, "verdicts": d.verdicts}
+        dd = ev.decimation
+        if dd.runs:
+            dec = {"n_points": dd.n_points, "starts": len(dd.runs), "max_deflection_ratio": dd.max_deflection_ratio,
+                   "r_squared": dd.r_squared, "verdicts": dd.verdicts}
         else:
-            dec = {"n_points": d.n_points, "note": d.note}
+            dec = {"n_points": dd.n_points, "note": dd.note}
         dec["runs"] = [{"start_deg": r.start_deg, "r_squared": r.r_squared, "tilt_p_value": r.tilt_p_value,
                         "tilt_amplitude": L(r.tilt_amplitude), "max_deflection_ratio": r.max_deflection_ratio,
-                        "verdict": r.verdict, "deflection_verdict": r.deflection_verdict} for r in d.runs]
+                        "verdict": r.verdict, "deflection_verdict": r.deflection_verdict} for r in dd.runs]
         out["decimation"] = dec
     return out
 
 
 def _arc(a, f) -> dict:
-    row = {"start_deg": _n(a.start_deg, 4), "end_deg": _n(a.end_deg, 4), "arc_length": _n(a.arc_length / f),
-           "depth": _n(a.depth / f), "deepest_deg": _n(a.deepest_deg, 4), "depth_sd": _n(a.depth_sd / f),
-           "permissible": _n(a.permissible / f) if a.permissible is not None else None, "verdict": a.verdict}
-    if a.ratio is not None:
-        row["ratio"] = _n(a.ratio, 4)
-    return row
+    return {"start_deg": _n(a.start_deg), "end_deg": _n(a.end_deg), "arc_length": _n(a.arc_length / f),
+            "depth": _n(a.depth / f), "deepest_deg": _n(a.deepest_deg), "depth_sd": _n(a.depth_sd / f),
+            "permissible": _n(a.permissible / f) if a.permissible is not None else None, "verdict": a.verdict,
+            "ratio": _n(a.ratio), "ratio_upper95": _n(a.ratio_upper95)}
+
+
+def _suffix(units) -> str:
+    return units
 
 
 def evaluation_csv(ev, units) -> str:
     f = to_metres(units)
+    u = _suffix(units)
     s, d = ev.survey, ev.deflection
     buf = io.StringIO()
+    buf.write(f"# chimeline evaluation per point; lengths in {UNIT_LABELS.get(units, units)}; azimuth in degrees "
+              f"clockwise from +Y; ratio = |deflection| / allowable (B.3.2.1)\n# Caution: {CAUTION}\n")
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["azimuth_deg", "label", "elevation", "out_of_plane", "deflection", "deflection_sd", "allowable",
-                "ratio", "status"])
+    w.writerow(["azimuth_deg", "label", f"elevation_{u}", f"out_of_plane_{u}", f"deflection_{u}",
+                f"deflection_sd_{u}", f"allowable_{u}", "ratio", "status"])
     for i in range(len(s.azimuth_deg)):
         st = "exceeds" if d.exceeds[i] else ("indeterminate" if d.indeterminate[i] else
                                              ("acceptable" if np.isfinite(d.ratio[i]) else "no neighbours"))
         vals = [s.elevation[i], ev.out_of_plane[i], d.S[i], d.S_sd[i], d.allowable[i]]
-        w.writerow([f"{s.azimuth_deg[i]:.4f}", s.label[i]] + [f"{v / f:.6f}" if np.isfinite(v) else "" for v in vals]
-                   + [f"{d.ratio[i]:.4f}" if np.isfinite(d.ratio[i]) else "", st])
+        w.writerow([_c(s.azimuth_deg[i]), s.label[i]] + [_c(v / f) for v in vals] + [_c(d.ratio[i]), st])
     return buf.getvalue()
 
 
 def fe_csv(ev, units) -> str:
     """Out-of-plane settlement per azimuth for a finite element boundary condition."""
     f = to_metres(units)
+    u = _suffix(units)
     s = ev.survey
     R = ev.tank.radius
     buf = io.StringIO()
     buf.write(f"# out-of-plane settlement of the shell base (tilt plane removed: {ev.out_of_plane_reference}); "
-              f"lengths in {UNIT_LABELS.get(units, units)}; azimuth clockwise from +Y; radius {R / f:.4f}\n")
+              f"lengths in {UNIT_LABELS.get(units, units)}; azimuth clockwise from +Y; radius {R / f!r}\n"
+              f"# Caution: {CAUTION}\n")
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["azimuth_deg", "arc_length", "x", "y", "out_of_plane", "std_error"])
+    w.writerow(["azimuth_deg", f"arc_length_{u}", f"x_{u}", f"y_{u}", f"out_of_plane_{u}", f"std_error_{u}"])
     se = s.std_error if s.std_error is not None else np.full(len(s.azimuth_deg), np.nan)
-    for a, u, e in zip(s.azimuth_deg, ev.out_of_plane, se):
+    for a, uu, e in zip(s.azimuth_deg, ev.out_of_plane, se):
         th = np.radians(a)
-        w.writerow([f"{a:.4f}", f"{R * th / f:.4f}", f"{R * np.sin(th) / f:.4f}", f"{R * np.cos(th) / f:.4f}",
-                    f"{u / f:.6f}", f"{e / f:.6f}" if np.isfinite(e) else ""])
+        w.writerow([_c(a), _c(R * th / f), _c(R * np.sin(th) / f), _c(R * np.cos(th) / f), _c(uu / f), _c(e / f)])
     return buf.getvalue()
 
 

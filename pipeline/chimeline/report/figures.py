@@ -79,19 +79,39 @@ def profile_plot(res, ev, units):
     return _png(fig)
 
 
+def _labels(ax, s, y, every=None):
+    """Point labels of a survey beside its readings (every n-th for long surveys)."""
+    if s.dense:
+        return
+    step = every or max(1, len(s.azimuth_deg) // 24)
+    for i in range(0, len(s.azimuth_deg), step):
+        ax.annotate(str(s.label[i]), (s.azimuth_deg[i], y[i]), fontsize=6, xytext=(2, 3), textcoords="offset points",
+                    color=INK)
+
+
+def _legend_below(ax, ncol=3):
+    """Legends sit below the axes, never over the data."""
+    ax.legend(fontsize=7, frameon=False, ncol=ncol, loc="upper left", bbox_to_anchor=(0, -0.2))
+
+
 def survey_profile_plot(ev, units):
     fig, ax = _fig()
     f = to_metres(units)
     s = ev.survey
-    ax.plot(s.azimuth_deg, s.elevation / f, "o-" if not s.dense else "-", color=MEASURED, ms=4, lw=1,
-            label="junction elevation")
+    ax.plot(s.azimuth_deg, s.elevation / f, "o" if not s.dense else "-", color=MEASURED, ms=4, lw=1,
+            label="readings" if not s.dense else "junction elevation")
+    _labels(ax, s, s.elevation / f)
     th = np.radians(np.arange(0, 360, 0.5))
     t = ev.tilt
-    ax.plot(np.degrees(th), (t.a + t.b * np.cos(th) + t.c * np.sin(th)) / f, color=INK, ls="--", lw=1,
-            label=f"tilt plane (R^2 = {t.r_squared:.3f})")
+    plane = t.a + t.b * np.cos(th) + t.c * np.sin(th)
+    ax.plot(np.degrees(th), plane / f, color=INK, ls="--", lw=1, label=f"tilt plane (cosine fit, R^2 = {t.r_squared:.3f})")
+    m = ev.model
+    full = np.interp(m.azimuth_deg, np.degrees(th), plane, period=360) + m.value
+    ax.plot(m.azimuth_deg, full / f, color=MEASURED, lw=0.8, alpha=0.7,
+            label=f"Fourier model (K = {ev.fourier.order}, {'tilt from the cosine fit' if not s.dense else 'modes >= 2 added'})")
     _az_axis(ax)
     ax.set_ylabel(f"elevation ({_ul(units)})")
-    ax.legend(fontsize=7, frameon=False)
+    _legend_below(ax)
     return _png(fig)
 
 
@@ -100,14 +120,22 @@ def out_of_plane_plot(ev, units):
     k, u = small_length(units)
     s = ev.survey
     grid, m, sd = ev.model.azimuth_deg, ev.model.value, ev.model.sd
+    for dip in ev.dips:
+        a, b = dip.start_deg, dip.end_deg
+        for lo, hi in (((a, b),) if b >= a else ((a, 360.0), (0.0, b))):
+            ax.axvspan(lo, hi, color=GAP, lw=0)
+    if ev.dips:
+        ax.axvspan(0, 0, color=GAP, label="local dip (screening)")
     ax.fill_between(grid, (m - Z95 * sd) * k, (m + Z95 * sd) * k, color=BAND, lw=0, label="Fourier model 95 % band")
-    ax.plot(grid, m * k, color=INK, lw=1, label=f"Fourier model, modes 2..{ev.fourier.order}")
+    ax.plot(grid, m * k, color=INK, lw=1, label=f"Fourier model, modes 2..{ev.fourier.order}" if ev.fourier.order >= 2
+            else "Fourier model: no mode above 1")
     ax.plot(s.azimuth_deg, ev.out_of_plane * k, "o" if not s.dense else ".", color=MEASURED, ms=3 if s.dense else 5,
             label="measured (tilt plane removed)")
+    _labels(ax, s, ev.out_of_plane * k)
     ax.axhline(0, color=MUTED, lw=0.6)
     _az_axis(ax)
     ax.set_ylabel(f"out-of-plane settlement ({u})")
-    ax.legend(fontsize=7, frameon=False)
+    _legend_below(ax)
     return _png(fig)
 
 
@@ -118,7 +146,8 @@ def deflection_plot(ev, units):
     ok = np.isfinite(d.S)
     ax.errorbar(s.azimuth_deg[ok], d.S[ok] * k, yerr=Z95 * d.S_sd[ok] * k, fmt="o" if not s.dense else ".",
                 color=MEASURED, ms=3, elinewidth=0.5, capsize=0, label="deflection S_i (95 % bars)")
-    ax.plot(s.azimuth_deg, d.allowable * k, color=LIMIT, ls="--", lw=1, label="allowable S_max")
+    _labels(ax, s, np.where(ok, d.S, 0) * k)
+    ax.plot(s.azimuth_deg, d.allowable * k, color=LIMIT, ls="--", lw=1, label="allowable S_max (B.3.2.1)")
     ax.plot(s.azimuth_deg, -d.allowable * k, color=LIMIT, ls="--", lw=1)
     for mask, mk, lab in ((d.exceeds, "x", "exceeds"), (d.indeterminate, "s", "indeterminate")):
         if mask.any():
@@ -126,30 +155,36 @@ def deflection_plot(ev, units):
     ax.axhline(0, color=MUTED, lw=0.6)
     _az_axis(ax)
     ax.set_ylabel(f"deflection S ({u})")
-    ax.legend(fontsize=7, frameon=True, framealpha=0.9, edgecolor="none", ncol=2, loc="upper left")
+    _legend_below(ax)
     return _png(fig)
 
 
 def curvature_plot(ev, units):
     fig, ax = _fig()
     c = ev.curvature
-    f = to_metres(units)
-    scale = f  # 1/m -> 1/unit
-    ax.fill_between(c.azimuth_deg, (c.kappa - Z95 * c.kappa_sd) * scale, (c.kappa + Z95 * c.kappa_sd) * scale,
-                    color=BAND, lw=0, label="95 % band")
-    ax.plot(c.azimuth_deg, c.kappa * scale, color=INK, lw=1, label="curvature of the Fourier model (modes >= 2)")
-    ax.axhline(c.limit * scale, color=LIMIT, ls="--", lw=1, label="limit 11 Y / (E H)")
+    scale = to_metres(units)  # 1/m -> 1/unit
+    if c.assessed:
+        qs, qp = c.q_simultaneous, c.q_pointwise
+        ax.fill_between(c.azimuth_deg, (c.kappa - qs * c.kappa_sd) * scale, (c.kappa + qs * c.kappa_sd) * scale,
+                        color=BAND, alpha=0.45, lw=0, label="simultaneous 95 % band")
+        ax.fill_between(c.azimuth_deg, (c.kappa - qp * c.kappa_sd) * scale, (c.kappa + qp * c.kappa_sd) * scale,
+                        color=BAND, lw=0, label="pointwise 95 % band")
+        ax.plot(c.azimuth_deg, c.kappa * scale, color=INK, lw=1,
+                label=f"curvature smoothed at {c.smoothing / to_metres(units):.2f} {_ul(units)} (modes >= 2)")
+        ex = c.exceeds
+        if ex.any():
+            ax.plot(c.azimuth_deg[ex], c.kappa[ex] * scale, ".", color=LIMIT, ms=4, label="band beyond the limit")
+    else:
+        ax.text(180, 0, "not assessed: no mode above 1 in the model", ha="center", va="bottom", fontsize=8, color=INK)
+    ax.axhline(c.limit * scale, color=LIMIT, ls="--", lw=1, label="limit 11 Y / (E H) (screening)")
     ax.axhline(-c.limit * scale, color=LIMIT, ls="--", lw=1)
-    ex = c.exceeds
-    if ex.any():
-        ax.plot(c.azimuth_deg[ex], c.kappa[ex] * scale, ".", color=LIMIT, ms=4, label="band beyond the limit")
     if ev.curvature_sparse is not None:
         cs = ev.curvature_sparse
         ax.plot(cs.azimuth_deg, cs.kappa * scale, "o", color=MEASURED, ms=4, mfc="none",
                 label="second difference at the survey points")
     _az_axis(ax)
     ax.set_ylabel(f"curvature (1/{_ul(units)})")
-    ax.legend(fontsize=7, frameon=False, ncol=2)
+    ax.legend(fontsize=7, frameon=False, ncol=2, loc="upper left", bbox_to_anchor=(0, -0.22))
     return _png(fig)
 
 
@@ -159,11 +194,12 @@ def arcs_plot(ev, units):
     k, u = small_length(units)
     t = ev.arc_table
     if t.curve_arc_length is not None:
-        lab = "permissible (ILLUSTRATIVE demo table)" if t.illustrative else "permissible (user table)"
+        lab = ("permissible, B.3.2.2 (ILLUSTRATIVE demo table)" if t.illustrative else
+               "permissible, B.3.2.2 (user table)")
         ax.plot(t.curve_arc_length / f, t.curve_depth * k, color=LIMIT, ls="--", lw=1, label=lab)
     deepest = sorted(ev.arcs, key=lambda a: -a.depth)[:6]
     for a in ev.arcs:
-        col = LIMIT if a.verdict == "exceeds" else (MUTED if a.verdict == "outside table" else MEASURED)
+        col = LIMIT if a.verdict == "exceeds" else (MEASURED if a.verdict in ("acceptable", "indeterminate") else MUTED)
         ax.errorbar(a.arc_length / f, a.depth * k, yerr=Z95 * a.depth_sd * k, fmt="o", color=col, ms=4,
                     elinewidth=0.6)
         if a in deepest:
@@ -172,7 +208,11 @@ def arcs_plot(ev, units):
     ax.set_xlabel(f"settled arc length ({_ul(units)})")
     ax.set_ylabel(f"depth below the chord ({u})")
     ax.grid(alpha=0.25, lw=0.5)
-    ax.legend(fontsize=7, frameon=False)
+    if t.curve_arc_length is not None:
+        ax.legend(fontsize=7, frameon=False)
+    else:
+        ax.text(0.02, 0.95, "no permissible table supplied: arcs not assessed", transform=ax.transAxes, fontsize=8,
+                va="top", color=INK)
     ax.set_title("settled arcs (labels: azimuth of the deepest point of the six deepest, deg)", fontsize=8)
     return _png(fig)
 

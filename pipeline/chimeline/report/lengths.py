@@ -14,7 +14,7 @@ class Lengths:
         self.f = to_metres(self.unit)
         fr = res.frame
         self.z0 = fr.up_origin_m()
-        self.origin_m = fr.origin * fr.metres_per_unit
+        self.origin_m = fr.origin * fr.scale
 
     def length(self, v):
         return np.asarray(v, dtype=float) / self.f

@@ -37,6 +37,6 @@ def png_bytes(fig, dpi=120) -> bytes:
     plt = pyplot()
     buf = io.BytesIO()
     fig.tight_layout()
-    fig.savefig(buf, format="png", dpi=dpi)
+    fig.savefig(buf, format="png", dpi=dpi, bbox_inches="tight", metadata={"Software": None})
     plt.close(fig)
     return buf.getvalue()

@@ -12,6 +12,7 @@ from ..io.runfiles import CONFIG_YAML, PROFILE_CSV, PROFILE_JSON, RESIDUALS_CSV,
 from ..notices import CAUTION, VERTICAL_REFERENCE
 from ..units import UNIT_LABELS
 from .evaluation_files import evaluation_run_files
+from .geometry import geometry_figures, geometry_files, geometry_summary
 from .html import render_report, run_figures
 from .lengths import Lengths
 from .quicklook import quicklook
@@ -29,7 +30,7 @@ def profile_table(res) -> ProfileTable:
     p = res.profile
     return ProfileTable(azimuth_deg=p.azimuth_deg, elevation=L.elevation(p.elevation), std_error=L.length(p.std_error),
                         n_points=p.n_points, n_rejected=p.n_rejected, n_stations=p.n_stations, n_eff=p.n_eff,
-                        scale=L.length(p.scale), status=p.status)
+                        scale=L.length(p.scale), status=p.status, units=L.unit)
 
 
 def _estimate(e, L):
@@ -50,9 +51,15 @@ def profile_summary(res) -> dict:
         "software": {"name": "chimeline", "version": __version__},
         "tank": {"tag": res.config.tank.tag, "survey_date": res.config.tank.survey_date},
         "input": {"path": str(res.scan_path), "sha256": res.input_sha256, "n_points_read": res.n_points_read,
-                  "units": fr.units, "units_source": fr.units_source},
+                  "units": fr.units, "units_source": fr.units_source, "units_horizontal": fr.units_horizontal,
+                  "units_vertical": fr.units, "paths": [str(p) for p in res.scan_paths or (res.scan_path,)],
+                  "sha256_files": list(res.input_sha256_files),
+                  "decoded_fraction": res.counts.get("decoded_fraction"),
+                  "skipped_points": res.counts.get("skipped", {})},
         "config": {"source": res.config_source, "sha256": config_hash(res.resolved), "seed": res.config.seed},
-        "frame": {"origin": fr.origin.tolist(), "origin_units": fr.units, "up_axis": fr.up_axis,
+        "frame": {"origin": fr.origin.tolist(), "origin_units": fr.units if fr.units == fr.units_horizontal else
+                  [fr.units if i == (2 if fr.up_axis == "z" else 1) else fr.units_horizontal for i in range(3)],
+                  "up_axis": fr.up_axis,
                   "azimuth": f"degrees {'clockwise' if fr.azimuth_direction == 'cw' else 'counter-clockwise'} from "
                              f"{fr.azimuth_reference_deg:g} deg (0 = +Y of the scan frame), in [0, 360)"},
         "shell": {"center": [_num(v) for v in L.xy(s.center[:2], fr)], "base_elevation": _num(L.elevation(s.center[2])),
@@ -83,6 +90,8 @@ def profile_summary(res) -> dict:
         "counts": res.counts,
         "warnings": list(res.warnings),
         "vertical_reference": VERTICAL_REFERENCE,
+        "geometry": (geometry_summary(res.geometry, L, res.config.geometry.vertical_reference_sigma)
+                     if res.geometry is not None else None),
         "caution": CAUTION,
     }
 
@@ -93,7 +102,7 @@ def residual_table(res) -> ResidualTable:
     p, j = res.profile, res.junction
     k = np.nonzero(p.kept)[0]
     return ResidualTable(azimuth_deg=j.azimuth_deg[k], station=j.station[k], bin=p.bin_index[k],
-                         residual=L.length(p.residual[k]))
+                         residual=L.length(p.residual[k]), units=L.unit)
 
 
 def run_outputs(res) -> dict:
@@ -106,13 +115,19 @@ def run_outputs(res) -> dict:
     if res.evaluation is not None:
         files.update(evaluation_run_files(res.evaluation, res.out_units))
     files[RESIDUALS_CSV] = residual_table(res).to_csv()
-    if res.config.output.plots:
-        figs = run_figures(res, res.evaluation, res.out_units)
-        for name, png in figs.items():
-            files[f"plots/{name}.png"] = png
-        info = {"scan": str(res.scan_path), "sha256": res.input_sha256, "points read": res.n_points_read,
-                "scan units": f"{res.frame.units} ({res.frame.units_source})",
-                "local origin (scan units)": ", ".join(f"{v:.3f}" for v in res.frame.origin)}
-        files["report.html"] = render_report(res, res.evaluation, res.out_units, figs, res.resolved,
-                                             res.config_source, info, res.config.tank.tag or res.scan_path.stem)
+    files.update(geometry_files(res))
+    figs = run_figures(res, res.evaluation, res.out_units) if res.config.output.plots else {}
+    gfigs = geometry_figures(res.geometry, res.out_units) if res.geometry is not None and res.config.output.plots else {}
+    for name, png in {**figs, **gfigs}.items():
+        files[f"plots/{name}.png"] = png
+    more = len(res.scan_paths) - 1
+    info = {"scan": str(res.scan_path) + (f" and {more} more file{'s' if more > 1 else ''}" if more > 0 else ""),
+            "sha256": res.input_sha256, "points read": res.n_points_read,
+            "scan units": f"{res.frame.units} ({res.frame.units_source})" if res.frame.units_horizontal ==
+                          res.frame.units else f"{res.frame.units_horizontal} in plan, {res.frame.units} in "
+                                              f"height ({res.frame.units_source})",
+            "local origin (scan units)": ", ".join(f"{v:.3f}" for v in res.frame.origin)}
+    files["report.html"] = render_report(res, res.evaluation, res.out_units, figs, res.resolved,
+                                         res.config_source, info, res.config.tank.tag or res.scan_path.stem,
+                                         geometry_figures=gfigs)
     return files

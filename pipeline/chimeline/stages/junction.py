@@ -108,7 +108,7 @@ def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
     # move each point to the shell face along the tilt plane: the plate tilts with the tank, so across a
     # 50 mm projection a 1:500 tilt is 0.1 mm, which is systematic by azimuth
     zc = _to_face(z, az, d, gated, shell.radius, frame)
-    log.info("junction: %d ring points, %d candidates, %d within the gate; projection width %s",
+    log.debug("junction: %d ring points, %d candidates, %d within the gate; projection width %s",
              len(pts), n_cand, int(gated.sum()), f"{width * 1000:.0f} mm" if width else "not found")
     centres = (np.arange(n_sec) + 0.5) * sec_w
     return Junction(azimuth_deg=az[gated], z=zc[gated], station=station[gated], radial=d[gated],

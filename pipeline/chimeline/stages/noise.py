@@ -161,7 +161,7 @@ def estimate_noise(p: Profile, j: Junction, cfg: NoiseConfig, reject_k: float = 
         reg = float(np.sqrt(max(0.0, (o ** 2).sum() / (len(o) - 1) - np.mean(e ** 2))))
     resid_reg = _residual_registration(z, b, s, kept, offsets, within.sigma)
     datum = reg / np.sqrt(len(offsets)) if len(offsets) >= 2 else 0.0
-    log.info("noise: sigma %.2f mm [%.2f, %.2f] within-bin, %s pairs; registration spread %.2f mm",
+    log.debug("noise: sigma %.2f mm [%.2f, %.2f] within-bin, %s pairs; registration spread %.2f mm",
              within.sigma * 1e3, within.ci[0] * 1e3, within.ci[1] * 1e3,
              f"{pairs.sigma * 1e3:.2f} mm" if pairs else "no", reg * 1e3)
     return NoiseEstimate(sigma=within.sigma, ci=within.ci, confidence=conf, within_bin=within, pairs=pairs,

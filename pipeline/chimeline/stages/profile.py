@@ -147,7 +147,7 @@ def bin_junction(j: Junction, cfg: ProfileConfig, radius: float) -> Profile:
     resid = np.where(kept, zl - (loc[b] + slope[b] * daz), np.nan)
     gaps = gap_arcs(status == "empty", w)
     cov = float((status == "ok").mean())
-    log.info("profile: %d bins of %.3g deg, %.1f %% ok, %d gap(s), %d of %d candidates rejected",
+    log.debug("profile: %d bins of %.3g deg, %.1f %% ok, %d gap(s), %d of %d candidates rejected",
              nb, w, 100 * cov, len(gaps), int((~kept).sum()), len(kept))
     nanv = np.full(nb, np.nan)
     return Profile(azimuth_deg=centres, bin_width_deg=w, elevation=loc, std_error=nanv.copy(), scale=scale,

@@ -118,7 +118,7 @@ def fit_shell(xyz: np.ndarray, cfg: ShellConfig, rng: np.random.Generator, *, ce
     others = tuple(TankCandidate(np.array([f[0][0], f[0][1]]), f[0][3], f[1], f[2], f[3])
                    for j, f in enumerate(good) if j != k)
     res = _radial_residual(inl_pts, (cx, cy, z0, r, ax))
-    log.info("shell: r = %.3f m at (%.2f, %.2f), %d inliers, coverage %.0f %%, %d other cylinder(s)",
+    log.debug("shell: r = %.3f m at (%.2f, %.2f), %d inliers, coverage %.0f %%, %d other cylinder(s)",
              r, cx, cy, n_in, 100 * cov, len(others))
     return ShellFit(center=np.array([cx, cy, z0]), axis=ax, radius=r, radius_mean=r,
                     rms_residual=float(np.sqrt(np.mean(res ** 2))), n_inliers=n_in, coverage=cov,

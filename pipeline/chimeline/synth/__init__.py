@@ -14,11 +14,12 @@ from ..io.atomic import write_json
 from ..io.writers import EXTENSIONS, ScanWriter
 from ..units import to_metres
 from . import geometry as G
+from . import shell_truth
 from .scanner import ScanChunk, Simulator
 from .scene import Scene, load_scene, scene_from_mapping
 
 __all__ = ["Scene", "Simulator", "ScanChunk", "load_scene", "scene_from_mapping", "run_synth", "collect",
-           "truth_junction"]
+           "truth_junction", "shell_truth"]
 
 N_COVER = 3600  # 0.1 degree cells for the coverage of the projection top
 
@@ -196,4 +197,5 @@ def _truth_dict(scene, sim, stats, cover, label_counts, n_points, scan_path) -> 
                                 "fraction_1deg": float((cover.reshape(360, -1).sum(axis=1) > 0).mean()),
                                 "gaps": _gaps(cover)},
         "label_counts": {name: int(c) for name, c in zip(G.LABEL_NAMES, label_counts)},
+        "geometry": shell_truth.truth_section(scene, f),
     }

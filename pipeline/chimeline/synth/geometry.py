@@ -267,8 +267,13 @@ class Tank:
         """Tank-frame junction height: (uniform + out-of-plane) / cos(tilt)."""
         return (self.st.uniform + out_of_plane(self.st, self.R, az)) / self.cos_a
 
+    def ovality_amplitude(self, z):
+        """Amplitude of the cos 2 theta radius change at tank-frame height z (m above the unsettled base)."""
+        ov = self.ts.ovality
+        return ov.amplitude + ov.growth * np.asarray(z, dtype=float) if ov.growth else ov.amplitude
+
     def r_shell(self, az, z):
-        r = self.R + self.ts.ovality.amplitude * np.cos(2 * (az - np.radians(self.ts.ovality.azimuth_deg)))
+        r = self.R + self.ovality_amplitude(z) * np.cos(2 * (az - np.radians(self.ts.ovality.azimuth_deg)))
         if len(self.steps) > 1:
             k = np.clip(np.floor(z / self.ts.course_height).astype(int), 0, len(self.steps) - 1)
             r = r + self.steps[k]

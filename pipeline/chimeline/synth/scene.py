@@ -28,8 +28,10 @@ class FoundationScene:
 
 @dataclass(frozen=True)
 class OvalityScene:
-    amplitude: float = rng_field(0.0, 0.0, 0.2, doc="radius change cos(2(theta-azimuth)), m")
+    amplitude: float = rng_field(0.0, 0.0, 0.2, doc="radius change cos(2(theta-azimuth)) at the base, m")
     azimuth_deg: float = rng_field(0.0, -360.0, 360.0)
+    growth: float = rng_field(0.0, -0.01, 0.01, doc="change of the amplitude per m of height (an ovality that grows "
+                                                       "toward the top, as an unstiffened top does), m/m")
 
 
 @dataclass(frozen=True)

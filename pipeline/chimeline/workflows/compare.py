@@ -18,11 +18,13 @@ import numpy as np
 
 from ..config import EvaluateConfig, config_hash
 from ..errors import ConfigError, InputError, clip_repr
-from ..evaluate.comparison import brown_forsythe, profile_difference, variance_ratio
+from ..evaluate.comparison import (CONSISTENCY_NOTE, brown_forsythe, equivalence, noise_in_words, profile_difference,
+                                   variance_ratio)
 from ..io.atomic import OutputSlot
 from ..io.runfiles import (KIND_COMPARE, MANIFEST_JSON, FolderInput, kind_guard, provenance_record, read_run_folder,
                            with_manifest)
 from ..report.compare_html import compare_outputs
+from ..report.console import p_text
 from ..units import to_metres
 
 
@@ -74,8 +76,10 @@ def load_run(run_dir) -> dict:
         if not isinstance(center, (list, tuple)) or len(center) != 2:
             raise _Bad("'shell.center' must be two numbers")
         tank = rf.summary.get("tank") if isinstance(rf.summary.get("tank"), dict) else {}
-        out = {"dir": str(d), "tag": str(tank.get("tag") or d.name), "date": str(tank.get("survey_date") or ""),
-               "sigma": sigma, "ci": ci, "dof": dof,
+        inp = rf.config.get("input") if isinstance(rf.config.get("input"), dict) else {}
+        setup, date = str(inp.get("setup") or ""), str(tank.get("survey_date") or "")
+        out = {"dir": str(d), "tag": str(tank.get("tag") or ""), "date": date, "setup": setup,
+               "name": setup or date or d.name, "sigma": sigma, "ci": ci, "dof": dof,
                "datum_sigma": _number(n.get("datum_sigma") or 0, "noise.datum_sigma", nonnegative=True) * f,
                "stations": stations, "center": [_number(c, "shell.center") for c in center],
                "radius": _number(shell.get("radius"), "shell.radius", positive=True) * f, "units": rf.units}
@@ -93,10 +97,12 @@ def load_run(run_dir) -> dict:
     return out
 
 
-def compare_runs(dirs, alpha=0.05) -> dict:
+def compare_runs(dirs, alpha=0.05, margin=0.1) -> dict:
     md = EvaluateConfig.__dataclass_fields__["alpha"].metadata
     if isinstance(alpha, bool) or not isinstance(alpha, (int, float)) or not md["min"] <= alpha <= md["max"]:
         raise ConfigError(f"--alpha must be a significance level in [{md['min']}, {md['max']}], got {clip_repr(alpha)}")
+    if isinstance(margin, bool) or not isinstance(margin, (int, float)) or not 1e-3 <= margin <= 10.0:
+        raise ConfigError(f"--margin must be a share in [0.001, 10], got {clip_repr(margin)}")
     runs = [load_run(d) for d in dirs]
     if len(runs) < 2:
         raise InputError("compare needs at least two run folders")
@@ -107,6 +113,16 @@ def compare_runs(dirs, alpha=0.05) -> dict:
         if len(base["resid"]) and len(r["resid"]):
             vr["brown_forsythe"] = brown_forsythe(base["resid"], r["resid"])
         vr["noise_differs"] = vr["p_value"] <= alpha
+        eq = equivalence(base["sigma"], base["dof"], r["sigma"], r["dof"], margin, alpha)
+        eq["alpha"] = alpha
+        vr["equivalence"] = eq
+        vr["added_in_quadrature"] = math.sqrt(max(0.0, r["sigma"] ** 2 - base["sigma"] ** 2))
+        vr["in_words"] = noise_in_words(base["name"], r["name"], base["sigma"], r["sigma"], vr, eq, p_text)
+        by_id = {x["station"]: x for x in base["stations"] if x["sigma"]}
+        vr["stations"] = [dict(station=x["station"], **variance_ratio(by_id[x["station"]]["sigma"],
+                                                                      by_id[x["station"]]["dof"], x["sigma"], x["dof"]))
+                          for x in r["stations"] if x["sigma"] and x["station"] in by_id and x["dof"] and
+                          by_id[x["station"]]["dof"]]
         same_tank = (math.hypot(r["center"][0] - base["center"][0], r["center"][1] - base["center"][1])
                      * to_metres(r["units"]) < 0.5 and abs(r["radius"] - base["radius"]) < 0.05)
         if same_tank:
@@ -123,8 +139,10 @@ def compare_runs(dirs, alpha=0.05) -> dict:
                     pd["rate_per_year_se"] = pd["mean_difference_se"] / abs(dt)
             except ValueError:
                 pass
+        if "consistency_p" in pd:
+            pd["consistency_note"] = CONSISTENCY_NOTE
         pairs.append({"reference": base["dir"], "run": r["dir"], "noise": vr, "profile": pd, "same_tank": same_tank})
-    return {"runs": runs, "pairs": pairs, "alpha": alpha}
+    return {"runs": runs, "pairs": pairs, "alpha": alpha, "margin": margin}
 
 
 def write_compare(result, out_dir) -> dict:
@@ -132,7 +150,7 @@ def write_compare(result, out_dir) -> dict:
     t0 = time.perf_counter()
     with OutputSlot(out_dir, guard=kind_guard(KIND_COMPARE), inputs=[r["dir"] for r in result["runs"]]) as slot:
         files, js = compare_outputs(result)
-        settings = config_hash({"alpha": result["alpha"]})
+        settings = config_hash({"alpha": result["alpha"], "margin": result.get("margin")})
         slot.publish(with_manifest(files, KIND_COMPARE, [r["input"] for r in result["runs"]], settings,
                                    provenance_record("compare", {"total": time.perf_counter() - t0},
                                                      recovered=slot.recovered)))

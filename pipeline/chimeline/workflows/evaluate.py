@@ -13,6 +13,7 @@ from ..evaluate import decimation_study, evaluate_survey, has_tank_data, tank_da
 from ..evaluate.results import Evaluation
 from ..io.arctable import load_arc_table
 from ..io.atomic import OutputSlot
+from ..io.pdf import pdf_bytes
 from ..io.runfiles import KIND_EVALUATION, FolderInput, kind_guard, provenance_record, with_manifest
 from ..io.surveys import SurveyData, read_survey
 from ..report.evaluation_files import evaluation_outputs
@@ -32,13 +33,22 @@ def survey_from_run(res) -> SurveyData:
 
 def _evaluate(s: SurveyData, tank, cfg) -> Evaluation:
     table = load_arc_table(cfg.evaluate.arc_table)
-    ev = evaluate_survey(s, tank, cfg.evaluate, table)
+    ev = evaluate_survey(s, tank, cfg.evaluate, table, seed=cfg.seed)
+    log.info("evaluate: %s, governed by %s; tilt %.1f mm (R^2 %.3f), Fourier K = %d", ev.verdict, ev.governing,
+             ev.tilt.amplitude * 1e3, ev.tilt.r_squared, ev.fourier.order)
     if cfg.evaluate.decimate:
         if not s.dense:
             ev = dataclasses.replace(ev, warnings=ev.warnings + ("evaluate.decimate applies to dense profiles only; "
                                                                  "ignored",))
         else:
-            ev = dataclasses.replace(ev, decimation=decimation_study(s, tank, cfg.evaluate, table))
+            ev = dataclasses.replace(ev, decimation=decimation_study(s, tank, cfg.evaluate, table,
+                                                                                  seed=cfg.seed))
+            d = ev.decimation
+            if d.runs:
+                mr = d.max_deflection_ratio
+                log.info("decimation: %d %d-point surveys from the profile: max S/S_max min %.2f, median %.2f, max %.2f;"
+                         " %s", len(d.runs), d.n_points, mr["min"], mr["median"], mr["max"],
+                         ", ".join(f"{k} {v}" for k, v in d.verdicts.items() if v))
     return ev
 
 
@@ -66,6 +76,8 @@ def evaluate_file(path, out_dir, config_path=None, sets=()) -> Evaluation:
         sha = sha256_file(path)
         files = evaluation_outputs(ev, s.units, resolved=resolved, config_source=source, input_path=path,
                                    input_sha256=sha)
+        if cfg.output.pdf:
+            files["report.pdf"] = pdf_bytes(files["report.html"])
         inputs = [FolderInput("profile" if s.dense else "survey", str(path), sha)]
         slot.publish(with_manifest(files, KIND_EVALUATION, inputs, config_hash(resolved),
                                    provenance_record("evaluate", {"total": time.perf_counter() - t0},

@@ -31,14 +31,18 @@ def headline(rf: RunFolder) -> dict:
     return h
 
 
-def earlier_input(rf: RunFolder) -> tuple[str, str | None]:
-    """(path, SHA-256) of the earlier run's scan: from its manifest, or profile.json for older folders."""
-    m = rf.manifest.input("scan") if rf.manifest is not None else None
-    if m is not None:
-        return m.path, m.sha256
+def earlier_inputs(rf: RunFolder) -> list[tuple[str, str | None]]:
+    """[(path, SHA-256)] of the earlier run's scan files: from its manifest, or profile.json for older folders."""
+    if rf.manifest is not None:
+        scans = [(i.path, i.sha256) for i in rf.manifest.inputs if i.role == "scan"]
+        if scans:
+            return scans
     try:
         inp = rf.summary["input"]
-        return str(inp["path"]), (str(inp["sha256"]) if inp.get("sha256") else None)
+        paths = [str(p) for p in (inp.get("paths") or [inp["path"]])]
+        shas = list(inp.get("sha256_files") or ([inp.get("sha256")] if len(paths) == 1 else []))
+        shas = [str(h) if h else None for h in shas] if len(shas) == len(paths) else [None] * len(paths)
+        return list(zip(paths, shas))
     except (KeyError, TypeError, AttributeError) as exc:
         raise InputError(f"{rf.path / 'profile.json'}: missing or malformed entry {exc}") from None
 
@@ -55,29 +59,35 @@ def rerun(run_dir, out_dir, sets, progress=None, *, scan=None, allow_different_i
         h0 = headline(before)
     except (KeyError, TypeError, ValueError, IndexError, AttributeError) as exc:
         raise InputError(f"{before.path / 'profile.json'}: missing or malformed entry {exc}") from None
-    stored, stored_sha = earlier_input(before)
+    stored = earlier_inputs(before)
     notes = []
-    if scan is None:
-        scan = Path(stored)
-        if not scan.exists():
-            sha = f" (SHA-256 {stored_sha[:16]}...)" if stored_sha else ""
-            raise InputError(f"{before.path}: the earlier input {stored} is no longer there; give the moved scan with "
-                             f"--scan PATH{sha}")
-    scan = Path(os.path.abspath(scan))
-    if not scan.is_file():
-        raise InputError(f"{scan}: scan file not found")
-    actual = sha256_file(scan)
-    if stored_sha and actual != stored_sha:
+    if scan:
+        scans = [Path(os.path.abspath(p)) for p in (scan if isinstance(scan, (list, tuple)) else [scan])]
+    else:
+        scans = [Path(p) for p, _ in stored]
+        for p, sha in stored:
+            if not Path(p).exists():
+                hint = f" (SHA-256 {sha[:16]}...)" if sha else ""
+                raise InputError(f"{before.path}: the earlier input {p} is no longer there; give the moved scan with "
+                                 f"--scan PATH{hint}")
+    for p in scans:
+        if not p.is_file():
+            raise InputError(f"{p}: scan file not found")
+    actual = [sha256_file(p) for p in scans]
+    expected = [sha for _, sha in stored]
+    if all(expected) and sorted(actual) != sorted(expected):
         if not allow_different_input:
-            raise InputError(f"{scan}: its SHA-256 {actual[:16]}... differs from the earlier run's input "
-                             f"({stored_sha[:16]}...); pass --allow-different-input to rerun on a different scan")
-        notes.append(f"the scan differs from the earlier run's input (SHA-256 {actual[:16]}... instead of "
-                     f"{stored_sha[:16]}...)")
+            raise InputError(f"{scans[0] if len(scans) == 1 else ', '.join(map(str, scans))}: its SHA-256 "
+                             f"{actual[0][:16]}... differs from the earlier run's input ({expected[0][:16]}...); pass "
+                             f"--allow-different-input to rerun on a different scan")
+        notes.append(f"the scan differs from the earlier run's input (SHA-256 {actual[0][:16]}... instead of "
+                     f"{expected[0][:16]}...)")
     mp = before.path / MANIFEST_JSON
     earlier = FolderInput("earlier_run", os.path.abspath(before.path),
                           hashlib.sha256(mp.read_bytes()).hexdigest() if before.manifest is not None else None)
+    scan = scans if len(scans) > 1 else scans[0]
     res = run_scan(scan, out_dir, sets=sets, progress=progress, base_mapping=before.config,
-                   base_source=str(before.path / CONFIG_YAML), input_sha256=actual, extra_inputs=[earlier])
+                   base_source=str(before.path / CONFIG_YAML), extra_inputs=[earlier])
     a, b = flatten(before.config), flatten(res.resolved)
     changed = [(k, a.get(k), b.get(k)) for k in sorted(set(a) | set(b)) if a.get(k) != b.get(k)]
     h1 = headline(read_run_folder(out_dir))

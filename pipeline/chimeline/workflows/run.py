@@ -6,10 +6,12 @@ then every chunk is cut down to the thin ring around the shell base before the n
 """
 from __future__ import annotations
 
+import concurrent.futures
 import dataclasses
 import logging
 import math
 import os
+import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -18,19 +20,22 @@ from typing import Callable, Optional
 import numpy as np
 
 from ..config import ChimelineConfig, ProfileConfig, config_hash, load_config
-from ..core.hashing import sha256_file
+from ..core.hashing import sha256_file, sha256_text
 from ..core.rng import Purpose, stream
 from ..errors import ConfigError, InputError, StageError
 from ..evaluate.results import Evaluation
 from ..io.atomic import OutputSlot, checkpoint
-from ..io.readers import open_scan
+from ..io.pdf import pdf_bytes
+from ..io.readers import expand_inputs, open_scans
 from ..io.runfiles import KIND_RUN, FolderInput, kind_guard, provenance_record, with_manifest
 from ..report.run_files import run_outputs
-from ..stages.frame import Frame, check_extent, make_frame
+from ..stages.frame import Frame, check_extent, make_frame, precision_warnings, tie_azimuth_zero
+from ..stages.geometry import FaceSampler, ShellGeometry, measure_geometry
 from ..stages.junction import Junction, RingFilter, extract_junction
 from ..stages.noise import NoiseEstimate, attach_uncertainty, estimate_noise
 from ..stages.profile import Profile, bin_junction
 from ..stages.shell import ShellFit, fit_shell, refine_base
+from ..units import PINT_NAMES, parse_quantity
 from .evaluate import evaluate_run
 
 log = logging.getLogger(__name__)
@@ -58,6 +63,9 @@ class RunResult:
     ring_sample: np.ndarray  # (k, 3) local m, ring points for plots
     shell_sample: np.ndarray  # (s, 3) local m, points near the shell face at all heights
     evaluation: Optional[Evaluation] = None
+    geometry: Optional[ShellGeometry] = None  # None with geometry.enabled: false or too little shell face
+    scan_paths: tuple = ()  # every input file (several for tiles or one file per station); scan_path is the first
+    input_sha256_files: tuple = ()  # (str,) SHA-256 of each input file, in scan_paths order
 
     @property
     def out_units(self) -> str:
@@ -70,35 +78,51 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     """Run every stage on ``scan``; no files are written, no evaluation is made."""
     progress = progress or (lambda *a: None)
     timings, warnings, counts = {}, [], {}
-    scan = Path(scan)
+    paths = expand_inputs(scan if isinstance(scan, (list, tuple)) else [scan])
+    scan = paths[0]
     t = time.perf_counter()
-    src = open_scan(scan)
+    progress("read", 0, None)
+    src = open_scans(paths, cfg.input)
     rng = np.random.default_rng(cfg.seed)
     sample = src.sample(cfg.shell.sample_points, rng)
     fin = np.isfinite(sample.xyz).all(axis=1)
     timings["read_sample"] = time.perf_counter() - t
-    log.info("read: %s, %d points, sample of %d", scan.name, src.n_points, len(sample.xyz))
+    log.info("read: %s%s, %d points, sample of %d", scan.name, f" and {len(paths) - 1} more" if len(paths) > 1 else "",
+             src.n_points, len(sample.xyz))
 
     t = time.perf_counter()
     if fin.sum() == 0:
         raise InputError(f"{scan}: no point has finite coordinates")
-    frame = make_frame(sample.xyz, src.units_hint, cfg.input, cfg.frame, warnings)
+    frame = make_frame(sample.xyz, src.crs or src.units_hint, cfg.input, cfg.frame, warnings, path=scan)
     local = frame.to_local(sample.xyz[fin])
     check_extent(scan, local, frame, cfg.shell.min_radius, cfg.shell.max_radius)
     hint = frame.file_xy_to_local(cfg.tank.center_hint) if cfg.tank.center_hint is not None else None
     timings["frame"] = time.perf_counter() - t
 
     t = time.perf_counter()
-    shell = fit_shell(local, cfg.shell, rng, center_hint=hint, metres_per_unit=frame.metres_per_unit)
+    progress("shell", 0, None)
+    shell = fit_shell(local, cfg.shell, rng, center_hint=hint, metres_per_unit=frame.metres_per_unit_horizontal)
+    if cfg.frame.azimuth_zero_at is not None:
+        frame = tie_azimuth_zero(frame, shell, cfg.frame.azimuth_zero_at, scan)
+        log.info("frame: azimuth 0 points at %s: %.3f deg clockwise from +Y", list(cfg.frame.azimuth_zero_at),
+                 frame.azimuth_reference_deg)
     timings["shell"] = time.perf_counter() - t
+    log.info("shell: radius %.4f m, centre (%.3f, %.3f) m local, axis tilt %.4f deg, %d inliers, %.0f %% of the "
+             "circumference; %s", shell.radius, shell.center[0], shell.center[1],
+             float(np.degrees(np.arccos(min(1.0, abs(shell.axis[2]))))), shell.n_inliers, 100 * shell.coverage,
+             shell.selection)
 
     t = time.perf_counter()
     ring_filter = RingFilter(local, shell, frame, cfg.junction, src.n_points, cfg.seed)
     ring, ring_st, plot_parts = [], [], []
     stride = max(1, src.n_points // 150_000)
+    face = FaceSampler(local, shell, cfg.geometry, src.n_points, cfg.seed) if cfg.geometry.enabled else None
+    every = max(1, stride // face.stride) if face else 1  # the reader strides for the face; plots take every k-th
     n_read = n_bad = 0
     up = 2 if frame.up_axis == "z" else 1
-    for n, band, strided, bad in src.stream(cfg.input.chunk_size, up, ring_filter.up_band_file(), stride):
+    bounds = _plan_bounds(shell, frame, cfg.junction.band_outside, full_height=face is not None)
+    for n, band, strided, bad in src.stream(cfg.input.chunk_size, up, ring_filter.up_band_file(), stride // every,
+                                            bounds):
         n_read += n
         n_bad += bad
         ok = np.isfinite(band.xyz).all(axis=1)
@@ -107,11 +131,19 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
         kp, ks = ring_filter(p, sid)
         ring.append(kp)
         ring_st.append(ks)
-        sp = strided.xyz[np.isfinite(strided.xyz).all(axis=1)]
-        plot_parts.append(frame.to_local(sp))
+        fin_s = np.isfinite(strided.xyz).all(axis=1)
+        sp = frame.to_local(strided.xyz[fin_s])
+        if face is not None:
+            face(sp, strided.source_id[fin_s] if strided.source_id is not None else np.zeros(len(sp), np.int64))
+        plot_parts.append(sp[::every])
         progress("stream", n_read, src.n_points)
         checkpoint("stream")
     counts["face_keep_fraction"] = round(ring_filter.face_keep_fraction, 6)
+    counts["decoded_fraction"] = round(min(src.decoded / max(src.n_points, 1), 1.0), 6)
+    counts["skipped"] = src.skipped_counts
+    if src.decoded < src.n_points:
+        log.info("stream: decoded %.1f %% of the file (the octree nodes that meet the tank's box)",
+                 100 * src.decoded / max(src.n_points, 1))
     if n_read and n_bad / n_read > cfg.input.max_nonfinite_fraction:
         raise InputError(f"{scan}: {n_bad} of {n_read} points have NaN or infinite coordinates "
                          f"(more than input.max_nonfinite_fraction = {cfg.input.max_nonfinite_fraction})")
@@ -123,13 +155,22 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     log.info("stream: %d points read, %d kept in the base ring", n_read, len(ring_pts))
 
     t = time.perf_counter()
+    progress("junction", 0, None)
     first = extract_junction(ring_pts, ring_sid, shell, frame, cfg.junction)
+    first_radius = shell.radius
     shell = refine_base(shell, ring_pts, first.base_z, cfg.shell)
     junction = extract_junction(ring_pts, ring_sid, shell, frame, cfg.junction)
     timings["junction"] = time.perf_counter() - t
+    pw = junction.projection_width
+    log.info("junction: %d candidates, %d within the height gate; projection width %s; radial window %.1f-%.1f mm",
+             junction.n_candidates, junction.n_gated, f"{pw * 1000:.0f} mm" if pw else "not found",
+             junction.radial_window[0] * 1000, junction.radial_window[1] * 1000)
+    log.debug("junction: ring %d points, base at %.4f m local; refined shell radius %.4f m (first pass %.4f m)",
+              junction.n_ring, junction.base_z, shell.radius, first_radius)
 
     _check_bin_arc(cfg.profile, shell.radius)
     t = time.perf_counter()
+    progress("profile", 0, None)
     profile = bin_junction(junction, cfg.profile, shell.radius)
     timings["profile"] = time.perf_counter() - t
     if profile.coverage < cfg.profile.min_coverage:
@@ -143,14 +184,27 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
         warnings.append(f"no junction data from {g0:.1f} to {g1:.1f} deg (gap left empty)")
 
     t = time.perf_counter()
+    progress("noise", 0, None)
     noise = estimate_noise(profile, junction, cfg.noise, cfg.profile.reject_k)
     profile = attach_uncertainty(profile, junction, noise)
     timings["noise"] = time.perf_counter() - t
+    log.info("profile: %d bins of %.3g deg, coverage %.1f %% ok, %d gap(s); %d of %d candidates rejected",
+             len(profile.azimuth_deg), profile.bin_width_deg, 100 * profile.coverage, len(profile.gaps),
+             int((~profile.kept).sum()), len(profile.kept))
+    log.info("noise: sigma %.3f mm [%.3f, %.3f] (within-bin); pairs %s; registration spread %.2f mm%s",
+             noise.sigma * 1e3, noise.ci[0] * 1e3, noise.ci[1] * 1e3,
+             f"{noise.pairs.sigma * 1e3:.3f} mm (F test p = {noise.agreement_p:.2g})" if noise.pairs else "none",
+             noise.registration_sigma * 1e3, "" if profile.leveled else " (station levelling not done)")
+    log.debug("noise: per station %s", "; ".join(
+        f"{st.station}: {st.within_bin.sigma * 1e3:.3f} mm, offset {st.offset * 1e3:+.2f} mm"
+        for st in noise.stations if st.within_bin is not None))
+    warnings += precision_warnings(src.coordinate_quantum, src.storage, frame, noise.sigma)
     if not noise.agree:
         warnings.append(f"noise estimators disagree: within-bin {noise.within_bin.sigma * 1e3:.2f} mm, pairs "
                         f"{noise.pairs.sigma * 1e3:.2f} mm (F test p = {noise.agreement_p:.2g})")
     if shell.others:
         warnings.append(f"{len(shell.others)} other cylinder(s) in view; chose the {shell.selection}")
+    geometry = _geometry(face, stride // every, shell, frame, profile, cfg, counts, timings, warnings) if face else None
 
     counts.update(n_points_read=n_read, nonfinite_dropped=n_bad, sample=int(len(sample.xyz)),
                   shell_candidates=shell.n_candidates, shell_inliers=shell.n_inliers, ring=int(len(ring_pts)),
@@ -169,7 +223,50 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     return RunResult(scan_path=scan, config=cfg, resolved=resolved, config_source=source, frame=frame, shell=shell,
                      junction=junction, profile=profile, noise=noise, counts=counts, timings=timings,
                      warnings=tuple(warnings), input_sha256="", n_points_read=n_read,
-                     plot_sample=plot_sample, ring_sample=rs, shell_sample=shell_sample)
+                     plot_sample=plot_sample, ring_sample=rs, shell_sample=shell_sample, geometry=geometry,
+                     scan_paths=tuple(paths))
+
+
+def _geometry(face, reader_stride, shell, frame, profile, cfg, counts, timings, warnings) -> Optional[ShellGeometry]:
+    """The geometry stage on the face sample; tank data in scan units set its tolerances."""
+    t = time.perf_counter()
+    pts, sid = face.points()
+    counts.update(face_sample=int(len(pts)), face_sample_fraction=round(face.keep_fraction / reader_stride, 6))
+    if len(pts) < 1000:
+        warnings.append(f"geometry: only {len(pts)} points on the shell face; no plumbness or roundness measured")
+        return None
+    unit = PINT_NAMES[frame.units]
+    tc = cfg.tank
+    H = parse_quantity(tc.shell_height, "length", unit, "tank.shell_height") if tc.shell_height is not None else None
+    D = parse_quantity(tc.diameter, "length", unit, "tank.diameter") if tc.diameter is not None else None
+    geo = measure_geometry(pts, sid, shell, frame, profile, cfg.geometry, shell_height=H, diameter=D)
+    warnings.extend(geo.warnings)
+    timings["geometry"] = time.perf_counter() - t
+    return geo
+
+
+def _plan_bounds(shell: ShellFit, frame: Frame, band_outside: float, full_height: bool = False):
+    """The base ring's plan box in file units ((3,) mins, (3,) maxs), for sources with a spatial index; the up axis
+    is left open (the reader restricts it to the base band) unless ``full_height``, when it spans the shell's seen
+    height (the geometry stage samples the face at all heights). None for y-up files."""
+    if frame.up_axis != "z":
+        return None
+    r = shell.radius + band_outside + 0.5  # m: a margin for the axis tilt over the band and the fit
+    c = np.asarray(shell.center[:2], dtype=float)
+    lo, hi = frame.to_file_xy(c - r), frame.to_file_xy(c + r)
+    zlo, zhi = -np.inf, np.inf
+    if full_height:
+        zlo = (shell.z_min - 1.0) / frame.metres_per_unit + frame.origin[2]
+        zhi = (shell.z_max + 1.0) / frame.metres_per_unit + frame.origin[2]
+    return np.array([lo[0], lo[1], zlo]), np.array([hi[0], hi[1], zhi])
+
+
+def _hash_inputs(paths, stop: threading.Event) -> tuple[str, tuple]:
+    """(SHA-256 of one file, or of the list of per-file digests for several; per-file digests)."""
+    each = tuple(sha256_file(p, stop=stop) for p in paths)
+    if len(each) == 1:
+        return each[0], each
+    return sha256_text("\n".join(each)), each
 
 
 def _check_bin_arc(pc: ProfileConfig, radius: float) -> None:
@@ -184,30 +281,45 @@ def _check_bin_arc(pc: ProfileConfig, radius: float) -> None:
 
 
 def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_mapping: dict | None = None,
-             base_source: str = "", input_sha256: str | None = None, extra_inputs=()) -> RunResult:
+             base_source: str = "", extra_inputs=()) -> RunResult:
     """Resolve the config, process the scan, evaluate when the config has tank data, publish the run folder.
 
     ``base_mapping`` (a resolved config read back from a run folder) stands in for ``config_path``. The folder is
     locked before any work and swapped in as a whole at the end (``io.atomic.OutputSlot``): a failure leaves the
-    earlier folder as it was. ``input_sha256`` skips hashing a scan the caller has hashed.
+    earlier folder as it was. ``extra_inputs`` (FolderInput) join the scan files in manifest.json.
     """
     cfg, resolved, source = load_config(config_path, sets, mapping=base_mapping, mapping_source=base_source)
-    scan = Path(os.path.abspath(scan))
-    with OutputSlot(out_dir, guard=kind_guard(KIND_RUN), inputs=[scan]) as slot:
+    paths = [Path(os.path.abspath(p)) for p in expand_inputs(scan if isinstance(scan, (list, tuple)) else [scan])]
+    with OutputSlot(out_dir, guard=kind_guard(KIND_RUN), inputs=paths) as slot:
         t0 = time.perf_counter()
-        res = process_scan(scan, cfg, resolved, source, progress)
+        files_in = [p for p in paths if p.is_file()]
+        # the input is hashed on another thread while the scan streams (hashlib releases the GIL on large blocks)
+        stop = threading.Event()
+        with concurrent.futures.ThreadPoolExecutor(max_workers=1) as pool:
+            hashing = pool.submit(_hash_inputs, files_in, stop)
+            try:
+                res = process_scan(paths, cfg, resolved, source, progress)
+            except BaseException:
+                stop.set()  # a failed run does not wait for the hash
+                raise
+            t = time.perf_counter()
+            sha, sha_each = hashing.result()
         timings = dict(res.timings)
+        timings["hash_wait"] = time.perf_counter() - t
         t = time.perf_counter()
-        sha = input_sha256 or sha256_file(scan)
-        timings["hash"] = time.perf_counter() - t
-        t = time.perf_counter()
+        if progress is not None:
+            progress("evaluate", 0, None)
         ev = evaluate_run(res)
         if ev is not None:
             timings["evaluate"] = time.perf_counter() - t
-        res = dataclasses.replace(res, input_sha256=sha, evaluation=ev, timings=timings)
+        res = dataclasses.replace(res, input_sha256=sha, input_sha256_files=sha_each, evaluation=ev, timings=timings)
+        if progress is not None:
+            progress("report", 0, None)
         files = run_outputs(res)
+        if cfg.output.pdf:
+            files["report.pdf"] = pdf_bytes(files["report.html"])
         timings["total"] = time.perf_counter() - t0
-        inputs = [FolderInput("scan", str(scan), sha), *extra_inputs]
+        inputs = [FolderInput("scan", str(p), h) for p, h in zip(files_in, sha_each)] + list(extra_inputs)
         slot.publish(with_manifest(files, KIND_RUN, inputs, config_hash(resolved),
                                    provenance_record("run", timings, recovered=slot.recovered)))
     return res
