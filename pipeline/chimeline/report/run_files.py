@@ -102,7 +102,6 @@ def profile_summary(res) -> dict:
                                 "pairs": _estimate(st.pairs, L), "vertical_offset": _num(L.length(st.offset), 7),
                                 "vertical_offset_se": _num(L.length(st.offset_se), 7)} for st in n.stations]},
         "counts": res.counts,
-        "timings_s": {k: round(v, 3) for k, v in res.timings.items()},
         "warnings": list(res.warnings),
         "vertical_reference": VERTICAL_REFERENCE,
         "geometry": (geometry_summary(res.geometry, L, res.config.geometry.vertical_reference_sigma)

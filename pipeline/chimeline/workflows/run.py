@@ -9,6 +9,8 @@ from __future__ import annotations
 import concurrent.futures
 import dataclasses
 import logging
+import math
+import os
 import threading
 import time
 from dataclasses import dataclass
@@ -17,14 +19,15 @@ from typing import Callable, Optional
 
 import numpy as np
 
-from ..config import ChimelineConfig, load_config
+from ..config import ChimelineConfig, ProfileConfig, config_hash, load_config
 from ..core.hashing import sha256_file, sha256_text
 from ..core.rng import Purpose, stream
-from ..errors import InputError, StageError
+from ..errors import ConfigError, InputError, StageError
 from ..evaluate.results import Evaluation
-from ..io.atomic import check_writable, staging_dir, write_files
-from ..io.pdf import html_to_pdf
+from ..io.atomic import OutputSlot, checkpoint
+from ..io.pdf import pdf_bytes
 from ..io.readers import expand_inputs, open_scans
+from ..io.runfiles import KIND_RUN, FolderInput, kind_guard, provenance_record, with_manifest
 from ..report.run_files import run_outputs
 from ..stages.frame import Frame, check_extent, make_frame, precision_warnings, tie_azimuth_zero
 from ..stages.geometry import FaceSampler, ShellGeometry, measure_geometry
@@ -135,6 +138,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
             face(sp, strided.source_id[fin_s] if strided.source_id is not None else np.zeros(len(sp), np.int64))
         plot_parts.append(sp[::every])
         progress("stream", n_read, src.n_points)
+        checkpoint("stream")
     counts["face_keep_fraction"] = round(ring_filter.face_keep_fraction, 6)
     counts["decoded_fraction"] = round(min(src.decoded / max(src.n_points, 1), 1.0), 6)
     counts["skipped"] = src.skipped_counts
@@ -165,6 +169,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     log.debug("junction: ring %d points, base at %.4f m local; refined shell radius %.4f m (first pass %.4f m)",
               junction.n_ring, junction.base_z, shell.radius, first_radius)
 
+    _check_bin_arc(cfg.profile, shell.radius)
     t = time.perf_counter()
     progress("profile", 0, None)
     profile = bin_junction(junction, cfg.profile, shell.radius)
@@ -353,43 +358,58 @@ def noise_warnings(noise: NoiseEstimate, cfg, profile: Profile) -> list:
     return out
 
 
-def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_mapping: dict | None = None,
-             base_source: str = "") -> RunResult:
-    """Resolve the config, process the scan, evaluate when the config has tank data, write every output.
+def _check_bin_arc(pc: ProfileConfig, radius: float) -> None:
+    """profile.bin_arc_length gives bins of arc / radius; they must lie in bin_width_deg's range on this shell."""
+    if pc.bin_arc_length is None:
+        return
+    md = ProfileConfig.__dataclass_fields__["bin_width_deg"].metadata
+    width = math.degrees(pc.bin_arc_length / radius)
+    if not md["min"] <= width <= md["max"]:
+        raise ConfigError(f"'profile.bin_arc_length' = {pc.bin_arc_length:g} m gives bins of {width:.3g} deg on this "
+                          f"shell (radius {radius:.3f} m); choose an arc giving {md['min']}-{md['max']} deg")
 
-    ``base_mapping`` (a resolved config read back from a run folder) stands in for ``config_path``.
+
+
+def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_mapping: dict | None = None,
+             base_source: str = "", extra_inputs=()) -> RunResult:
+    """Resolve the config, process the scan, evaluate when the config has tank data, publish the run folder.
+
+    ``base_mapping`` (a resolved config read back from a run folder) stands in for ``config_path``. The folder is
+    locked before any work and swapped in as a whole at the end (``io.atomic.OutputSlot``): a failure leaves the
+    earlier folder as it was. ``extra_inputs`` (FolderInput) join the scan files in manifest.json.
     """
     cfg, resolved, source = load_config(config_path, sets, mapping=base_mapping, mapping_source=base_source)
-    out_dir = Path(out_dir)
-    check_writable(out_dir)
-    t0 = time.perf_counter()
-    paths = expand_inputs(scan if isinstance(scan, (list, tuple)) else [scan])
-    # the input is hashed on another thread while the scan streams (hashlib releases the GIL on large blocks)
-    stop = threading.Event()
-    with concurrent.futures.ThreadPoolExecutor(max_workers=1) as pool:
-        hashing = pool.submit(_hash_inputs, [p for p in paths if Path(p).is_file()], stop)
-        try:
-            res = process_scan(paths, cfg, resolved, source, progress)
-        except BaseException:
-            stop.set()  # a failed run does not wait for the hash
-            raise
+    paths = [Path(os.path.abspath(p)) for p in expand_inputs(scan if isinstance(scan, (list, tuple)) else [scan])]
+    with OutputSlot(out_dir, guard=kind_guard(KIND_RUN), inputs=paths) as slot:
+        t0 = time.perf_counter()
+        files_in = [p for p in paths if p.is_file()]
+        # the input is hashed on another thread while the scan streams (hashlib releases the GIL on large blocks)
+        stop = threading.Event()
+        with concurrent.futures.ThreadPoolExecutor(max_workers=1) as pool:
+            hashing = pool.submit(_hash_inputs, files_in, stop)
+            try:
+                res = process_scan(paths, cfg, resolved, source, progress)
+            except BaseException:
+                stop.set()  # a failed run does not wait for the hash
+                raise
+            t = time.perf_counter()
+            sha, sha_each = hashing.result()
+        timings = dict(res.timings)
+        timings["hash_wait"] = time.perf_counter() - t
         t = time.perf_counter()
-        sha, sha_each = hashing.result()
-    timings = dict(res.timings)
-    timings["hash_wait"] = time.perf_counter() - t
-    t = time.perf_counter()
-    if progress is not None:
-        progress("evaluate", 0, None)
-    ev = evaluate_run(res)
-    if ev is not None:
-        timings["evaluate"] = time.perf_counter() - t
-    timings["total"] = time.perf_counter() - t0
-    res = dataclasses.replace(res, input_sha256=sha, input_sha256_files=sha_each, evaluation=ev, timings=timings)
-    if progress is not None:
-        progress("report", 0, None)
-    files = run_outputs(res)
-    with staging_dir(out_dir) as stage:
-        write_files(stage, files)
+        if progress is not None:
+            progress("evaluate", 0, None)
+        ev = evaluate_run(res)
+        if ev is not None:
+            timings["evaluate"] = time.perf_counter() - t
+        res = dataclasses.replace(res, input_sha256=sha, input_sha256_files=sha_each, evaluation=ev, timings=timings)
+        if progress is not None:
+            progress("report", 0, None)
+        files = run_outputs(res)
         if cfg.output.pdf:
-            html_to_pdf(stage / "report.html", stage / "report.pdf")
+            files["report.pdf"] = pdf_bytes(files["report.html"])
+        timings["total"] = time.perf_counter() - t0
+        inputs = [FolderInput("scan", str(p), h) for p, h in zip(files_in, sha_each)] + list(extra_inputs)
+        slot.publish(with_manifest(files, KIND_RUN, inputs, config_hash(resolved),
+                                   provenance_record("run", timings, recovered=slot.recovered)))
     return res
