@@ -40,7 +40,7 @@ def demo(ctx, work_dir, regenerate):
     res = d.run
     n = res.noise
     click.echo(f"noise sigma {n.sigma * 1e3:.2f} mm (95 % CI {n.ci[0] * 1e3:.2f}-{n.ci[1] * 1e3:.2f}), "
-               f"coverage {100 * res.profile.coverage:.1f} %, shell radius {res.shell.radius:.4f} m")
+               f"coverage {100 * res.profile.coverage:.1f} %, shell radius at the base {res.shell.radius:.4f} m")
     if res.evaluation is not None:
         for line in verdict_lines(res.evaluation, res.out_units):
             click.echo(line)

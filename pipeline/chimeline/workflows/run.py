@@ -108,8 +108,8 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
         log.info("frame: azimuth 0 points at %s: %.3f deg clockwise from +Y", list(cfg.frame.azimuth_zero_at),
                  frame.azimuth_reference_deg)
     timings["shell"] = time.perf_counter() - t
-    log.info("shell: radius %.4f m, centre (%.3f, %.3f) m local, axis tilt %.4f deg, %d inliers, %.0f %% of the "
-             "circumference; %s", shell.radius, shell.center[0], shell.center[1],
+    log.info("shell: radius %.4f m on the sample (refined at the base later), centre (%.3f, %.3f) m local, axis "
+             "tilt %.4f deg, %d inliers, %.0f %% of the circumference; %s", shell.radius, shell.center[0], shell.center[1],
              float(np.degrees(np.arccos(min(1.0, abs(shell.axis[2]))))), shell.n_inliers, 100 * shell.coverage,
              shell.selection)
 
