@@ -58,8 +58,12 @@ def _ranges(rr, limit=8):
     return s + (f" (+{len(rr) - limit} more)" if len(rr) > limit else "")
 
 
+SCREENING_WORDS = {"exceeds": "raised", "acceptable": "clear"}  # a flag informs: it is raised, never "exceeds"
+
+
 def _criterion_row(c):
-    return {"name": c.name, "clause": c.clause or "screening", "verdict": c.verdict, "ratio": _num(c.ratio),
+    shown = c.verdict if c.clause else SCREENING_WORDS.get(c.verdict, c.verdict)
+    return {"name": c.name, "clause": c.clause or "screening", "verdict": shown, "ratio": _num(c.ratio),
             "upper": _num(c.ratio_upper95), "uncertainty": c.uncertainty or c.governing, "governing": c.governing,
             "where": _ranges(c.azimuth_ranges), "notes": list(c.reasons),
             "coverage": "-" if c.evidence_coverage is None else f"{100 * c.evidence_coverage:.1f} %"}
