@@ -294,6 +294,12 @@ EVAL_CASES = [
     ev_csv("point-duplicate", csv_text("point,elevation", [(1, 10)] + [(i + 1, 10) for i in range(7)]),
            "appears more than once"),
     ev_csv("binary", bytes(range(256)) * 4, "cannot read"),
+    # a cell beyond the header would shift the row's meaning (a stray comma in a label)
+    ev_csv("extra-cell", "azimuth_deg,elevation,label\n" + "\n".join(f"{a},{e},p{i}" for i, (a, e) in
+                                                                     enumerate(_rows[:-1])) + f"\n{_rows[-1][0]},0,{_rows[-1][1]},px\n",
+           "cells but the header has 3"),
+    ev_csv("semicolons", "azimuth_deg;elevation_ft\n" + "\n".join(f"{a};{e}" for a, e in _rows) + "\n",
+           "write the file with commas"),
     ev_args(*TANK, inp="{dir}", id="survey-is-a-folder", phrase="is a folder"),
     ev_args(*TANK, inp="{dir}/missing.csv", id="survey-missing", phrase="input file not found"),
     ev_args("--set", "tank.diameter=30", "--set", "tank.shell_height=12", "--set", "tank.yield_strength=250 MPa",

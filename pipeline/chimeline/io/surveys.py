@@ -88,6 +88,14 @@ def read_survey(path, cfg) -> SurveyData:
         raise InputError(f"{path}: not a readable CSV table ({str(exc)[:100]})") from None
     if not rows:
         raise InputError(f"{path}: no data rows below the header")
+    header = [c for c in rows[0].keys() if c is not None]
+    if len(header) == 1 and any(d in header[0] for d in ";\t|"):
+        raise InputError(f"{path}: the header is one column ({clip_repr(header[0], 60)}): write the file with commas "
+                         f"between the columns")
+    for i, r in enumerate(rows, start=2):
+        if r.get(None):  # csv puts the cells beyond the header under None: they would shift what the row means
+            raise InputError(f"{path}: row {i}: {len(header) + len(r[None])} cells but the header has "
+                             f"{len(header)}; remove the extra cells or add their column to the header")
     cols, header_units = {}, set()
     for c in rows[0].keys():
         if c is None:
