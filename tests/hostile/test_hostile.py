@@ -460,6 +460,7 @@ SYNTH_CASES = [
     sy_case("out-empty", argv=("synth", "{scene}", "--out", ""), phrase="empty"),
     sy_case("out-inside-a-file", argv=("synth", "{scene}", "--out", "{dir}/afile/sub"), target="none",
             files={"afile": "x"}, phrase="inside a file"),
+    sy_case("into-a-run-folder", target="run", phrase="synth writes scans into a folder of their own"),
     sy_case("scene-missing", argv=("synth", "{dir}/none.yaml", "--out", "{out}"), phrase="not found"),
     sy_case("scene-folder", argv=("synth", "{dir}", "--out", "{out}"), phrase="is a directory"),
     sy_case("scene-deep", argv=("synth", "{dir}/sc.yaml", "--out", "{out}"),

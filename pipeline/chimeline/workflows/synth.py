@@ -12,6 +12,7 @@ import numpy as np
 from ..config import parse_set_pairs
 from ..errors import ConfigError, OutputError, clip_repr
 from ..io.atomic import check_writable, write_files
+from ..io.runfiles import KIND_COMMANDS, folder_kind
 from ..report.scanview import plot_scan
 from ..synth import SynthResult, load_scene, run_synth
 from ..synth.scanner import Simulator
@@ -53,6 +54,10 @@ def synthesize(scene_file, out_dir, sets=(), density=None, points=None, seed=Non
     progress = progress or (lambda *a: None)
     scene = load_synth_scene(scene_file, sets, density, points, seed)
     check_writable(out_dir)
+    have = folder_kind(out_dir) if Path(out_dir).is_dir() else None
+    if have in KIND_COMMANDS:  # a scan added to a run folder would vanish when that folder is next replaced
+        raise OutputError(f"{out_dir}: is a chimeline {have} folder (made by {KIND_COMMANDS[have]}); synth writes "
+                          f"scans into a folder of their own: choose another --out, e.g. scans")
     try:
         Path(out_dir).mkdir(parents=True, exist_ok=True)
     except OSError as exc:
