@@ -41,6 +41,7 @@ def test_report_files_and_content(run_dir):
     for c in js["criteria"]:  # each criterion's row carries its own verdict; a screening flag is raised or clear
         shown = c["verdict"] if "clause" in c else {"exceeds": "raised", "acceptable": "clear"}.get(c["verdict"],
                                                                                                   c["verdict"])
+        assert c.get("flag", shown) == shown  # evaluation.json says "raised"/"clear" beside a screening verdict
         cls = shown.replace(" ", "-")
         assert re.search(re.escape(c["name"]) + r"</td><td><span class=\"v v-" + cls, html), c["name"]
     # the first box says which check governs and which checks are the standard's and which are screening

@@ -45,7 +45,8 @@ def _criterion(c) -> dict:
     if c.clause is not None:
         d["clause"] = c.clause
     else:
-        d["screening"] = True
+        d["screening"] = True  # informs, never sets the overall verdict: its "exceeds" is read as the flag raised
+        d["flag"] = {"exceeds": "raised", "acceptable": "clear"}.get(c.verdict, c.verdict)
     d.update({"verdict": c.verdict, "ratio": _n(c.ratio), "ratio_upper95": _n(c.ratio_upper95),
               "ratio_lower95": _n(c.ratio_lower95), "uncertainty": c.uncertainty, "governing": c.governing,
               "azimuth_ranges_deg": [[_n(a), _n(b)] for a, b in c.azimuth_ranges],
