@@ -42,6 +42,8 @@ def test_report_files_and_content(run_dir):
         shown = c["verdict"] if "clause" in c else {"exceeds": "raised", "acceptable": "clear"}.get(c["verdict"],
                                                                                                   c["verdict"])
         assert c.get("flag", shown) == shown  # evaluation.json says "raised"/"clear" beside a screening verdict
+        if c["largest_ratio_at_deg"] is not None and not c["azimuth_ranges_deg"]:  # the result box says where
+            assert f"largest at {c['largest_ratio_at_deg']:.1f}" in html, c["name"]
         cls = shown.replace(" ", "-")
         assert re.search(re.escape(c["name"]) + r"</td><td><span class=\"v v-" + cls, html), c["name"]
     # the first box says which check governs and which checks are the standard's and which are screening

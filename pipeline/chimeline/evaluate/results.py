@@ -92,6 +92,7 @@ class Criterion:
     ratio_lower95: Optional[float] = None  # its 95 % lower bound
     uncertainty: str = ""  # the measurement-uncertainty statement, in words
     evidence_coverage: Optional[float] = None  # share of the circumference with evidence for this check
+    at_deg: Optional[float] = None  # deg: where the largest ratio is (None when no location was judged)
 
     @property
     def screening(self) -> bool:

@@ -56,7 +56,7 @@ def judge(name, az, ratio, lower, upper, *, clause=None, what="ratio", reasons=(
         reasons.append(force_indeterminate)
     gov = f"max {what} {rmax:.3g} at {az[k]:.1f} deg (95 % upper bound {up:.3g})"
     return Criterion(name, verdict, gov, where, tuple(reasons), clause=clause, ratio=rmax, ratio_upper95=up,
-                     ratio_lower95=lo, uncertainty=unc, evidence_coverage=coverage)
+                     ratio_lower95=lo, uncertainty=unc, evidence_coverage=coverage, at_deg=float(az[k]))
 
 
 def overall(criteria) -> tuple[str, str]:

@@ -65,7 +65,8 @@ def _criterion_row(c):
     shown = c.verdict if c.clause else SCREENING_WORDS.get(c.verdict, c.verdict)
     return {"name": c.name, "clause": c.clause or "screening", "verdict": shown, "ratio": _num(c.ratio),
             "upper": _num(c.ratio_upper95), "uncertainty": c.uncertainty or c.governing, "governing": c.governing,
-            "where": _ranges(c.azimuth_ranges), "notes": list(c.reasons),
+            "where": _ranges(c.azimuth_ranges) if c.azimuth_ranges else
+            ("-" if c.at_deg is None else f"largest at {c.at_deg:.1f}"), "notes": list(c.reasons),
             "coverage": "-" if c.evidence_coverage is None else f"{100 * c.evidence_coverage:.1f} %"}
 
 

@@ -50,7 +50,8 @@ def _criterion(c) -> dict:
     d.update({"verdict": c.verdict, "ratio": _n(c.ratio), "ratio_upper95": _n(c.ratio_upper95),
               "ratio_lower95": _n(c.ratio_lower95), "uncertainty": c.uncertainty, "governing": c.governing,
               "azimuth_ranges_deg": [[_n(a), _n(b)] for a, b in c.azimuth_ranges],
-              "evidence_coverage": _n(c.evidence_coverage), "notes": list(c.reasons)})
+              "evidence_coverage": _n(c.evidence_coverage), "largest_ratio_at_deg": _n(c.at_deg),
+              "notes": list(c.reasons)})
     return d
 
 
