@@ -43,11 +43,13 @@ def test_compare_same_setup_does_not_differ(simulate, tmp_path):
     a, _ = simulate("small_tank.yaml", 87)
     b, _ = simulate("small_tank.yaml", 88)
     for scan, name in ((a, "a"), (b, "b")):
-        invoke(["-q", "run", str(scan), "--out", str(tmp_path / name)])
+        invoke(["-q", "run", str(scan), "--out", str(tmp_path / name), "--set", "input.setup=scanner A"])
     invoke(["-q", "compare", str(tmp_path / "a"), str(tmp_path / "b"), "--out", str(tmp_path / "c")])
     js = json.loads((tmp_path / "c" / "compare.json").read_text())
     n = js["pairs"][0]["noise"]
     assert n["ratio_ci95"][0] <= 1.0 <= n["ratio_ci95"][1]
+    # one setup name for both runs: the words tell them apart by their folders
+    assert "scanner A (a)" in n["in_words"] and "scanner A (b)" in n["in_words"], n["in_words"]
 
 
 def test_equivalence_and_variance_ratio_against_scipy():

@@ -8,7 +8,7 @@ import click
 from ..core.lazy import lazy_import
 from ..notices import CAUTION
 from ..report.console import verdict_lines
-from .common import Progress, reported
+from .common import Progress, reported, warn
 
 synth_wf = lazy_import("chimeline.workflows.synth")
 
@@ -34,6 +34,8 @@ def demo(ctx, work_dir, regenerate):
     click.echo(f"view:  {d.view}")
     click.echo(f"profile: {out / 'profile.csv'}")
     click.echo(f"summary: {out / 'profile.json'}")
+    if (out / "evaluation.json").exists():
+        click.echo(f"evaluation: {out / 'evaluation.json'}")
     if (out / "report.html").exists():
         click.echo(f"report:  {out / 'report.html'}")
     click.echo(f"plot:    {out / 'quicklook.png'}")
@@ -44,4 +46,6 @@ def demo(ctx, work_dir, regenerate):
     if res.evaluation is not None:
         for line in verdict_lines(res.evaluation, res.out_units):
             click.echo(line)
+    for w in res.warnings:
+        warn(w)
     click.echo(f"Caution: {CAUTION}")

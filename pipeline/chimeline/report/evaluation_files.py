@@ -204,7 +204,7 @@ def evaluation_outputs(ev, units, *, resolved, config_source, input_path: Path, 
     for name, png in figs.items():
         files[f"plots/{name}.png"] = png
     info = {"input": str(input_path), "sha256": input_sha256, "points": len(ev.survey.azimuth_deg),
-            "dense profile": ev.survey.dense}
+            "kind of input": "dense profile (one value per azimuth bin)" if ev.survey.dense else "level survey"}
     tag = (resolved or {}).get("tank", {}).get("tag") or Path(input_path).stem
     files["report.html"] = render_report(None, ev, units, figs, resolved, config_source, info, tag)
     return files

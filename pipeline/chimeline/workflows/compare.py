@@ -12,6 +12,7 @@ import hashlib
 import math
 import os
 import time
+from pathlib import Path
 
 import numpy as np
 
@@ -103,6 +104,12 @@ def compare_runs(dirs, alpha=0.05, margin=0.1) -> dict:
     if isinstance(margin, bool) or not isinstance(margin, (int, float)) or not 1e-3 <= margin <= 10.0:
         raise ConfigError(f"--margin must be a share in [0.001, 10], got {clip_repr(margin)}")
     runs = [load_run(d) for d in dirs]
+    if len({r["name"] for r in runs}) < len(runs):  # equal setups or dates cannot tell the runs apart: folders can
+        names = [Path(r["dir"]).name for r in runs]
+        if len(set(names)) < len(runs):
+            names = [str(Path(r["dir"]).resolve()) for r in runs]
+        for r, nm in zip(runs, names):
+            r["name"] = f"{r['name']} ({nm})" if r["name"] != Path(r["dir"]).name else nm
     if len(runs) < 2:
         raise InputError("compare needs at least two run folders")
     base = runs[0]

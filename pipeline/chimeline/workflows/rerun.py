@@ -19,15 +19,19 @@ from .run import run_scan
 def headline(rf: RunFolder) -> dict:
     js = rf.summary
     u = rf.units
-    h = {"noise sigma": f"{js['noise']['sigma']:.6g} {u}", "coverage (ok)": f"{100 * js['profile']['coverage_ok']:.1f} %",
+    h = {"noise sigma": f"{js['noise']['sigma']:.5f} {u}", "coverage (ok)": f"{100 * js['profile']['coverage_ok']:.1f} %",
          "shell radius": f"{js['shell']['radius']:.4f} {u}"}
     e = rf.evaluation
     if e is not None:
-        h["tilt"] = (f"{e['tilt']['amplitude']:.5g} {u} low at {e['tilt']['low_azimuth_deg']:.1f} deg, "
+        h["tilt"] = (f"{e['tilt']['amplitude']:.4f} {u} low at {e['tilt']['low_azimuth_deg']:.1f} deg, "
                      f"R^2 {e['tilt']['r_squared']:.3f}")
         ratios = [p["ratio"] for p in e["points"] if p["ratio"] is not None]
         h["worst deflection ratio"] = f"{max(ratios):.3f}" if ratios else "-"
+        for c in e.get("criteria", []):  # every check: a change of governing check shows here
+            r = c.get("ratio")
+            h[c["name"]] = c.get("flag", c["verdict"]) + ("" if r is None else f", ratio {r:.3f}")
         h["verdict"] = e["verdict"]
+        h["governing check"] = str(e.get("governing", "-"))
     return h
 
 
@@ -92,4 +96,4 @@ def rerun(run_dir, out_dir, sets, progress=None, *, scan=None, allow_different_i
     changed = [(k, a.get(k), b.get(k)) for k in sorted(set(a) | set(b)) if a.get(k) != b.get(k)]
     h1 = headline(read_run_folder(out_dir))
     heads = [(k, h0.get(k, "-"), h1.get(k, "-")) for k in dict.fromkeys(list(h0) + list(h1))]
-    return changed, heads, notes
+    return changed, heads, notes + list(res.warnings)
