@@ -46,6 +46,6 @@ def demo(ctx, work_dir, regenerate):
     if res.evaluation is not None:
         for line in verdict_lines(res.evaluation, res.out_units):
             click.echo(line)
-    for w in res.warnings:
+    for w in dict.fromkeys(list(res.warnings) + list(res.evaluation.warnings if res.evaluation else [])):
         warn(w)
     click.echo(f"Caution: {CAUTION}")

@@ -178,6 +178,12 @@ def _evaluation(ev, fm, res) -> dict:
             "ratio": f"{mr['min']:.2f} / {mr['median']:.2f} / {mr['max']:.2f}",
             "r2": f"{r2['min']:.3f} / {r2['median']:.3f} / {r2['max']:.3f}",
             "verdicts": ", ".join(f"{v}: {n}" for v, n in dd.verdicts.items() if n)}
+        r2min = ev.settings.r2_min
+        low = sum(r.r_squared < r2min for r in dd.runs)
+        if low and ev.tilt.r2_rule_met:  # the dense profile passes the rule; a conventional survey might not
+            out["decimation"]["r2_note"] = (
+                f"{low} of {len(dd.runs)} sampled surveys have R^2 below {r2min}: a conventional {dd.n_points}-point "
+                f"survey of this tank could find B.3.2.1 not applicable where this profile does not")
     return out
 
 

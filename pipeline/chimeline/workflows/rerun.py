@@ -96,4 +96,5 @@ def rerun(run_dir, out_dir, sets, progress=None, *, scan=None, allow_different_i
     changed = [(k, a.get(k), b.get(k)) for k in sorted(set(a) | set(b)) if a.get(k) != b.get(k)]
     h1 = headline(read_run_folder(out_dir))
     heads = [(k, h0.get(k, "-"), h1.get(k, "-")) for k in dict.fromkeys(list(h0) + list(h1))]
-    return changed, heads, notes + list(res.warnings)
+    warns = list(res.warnings) + list(res.evaluation.warnings if res.evaluation else [])
+    return changed, heads, list(dict.fromkeys(notes + warns))
