@@ -219,3 +219,16 @@ def test_sparse_survey_near_the_limit_is_not_called_exceeds():
         ev = evaluate_survey(_survey(az, z), _tank(), EvaluateConfig(), None, seed=seed)
         assert ev.verdict != "exceeds"
         assert "reading error" in ev.settings.reading_sigma_source
+
+
+def test_a_reading_far_from_all_others_is_called_out_not_removed():
+    # 12 readings of a tank tilted 50 mm (never called out); then one slips by a metre (a typo or a unit slip)
+    az = np.arange(12) * 30.0
+    z = 10.0 + 0.05 * np.cos(np.radians(az - 40))
+    ev = evaluate_survey(_survey(az, z), _tank(), EvaluateConfig(), TABLE)
+    assert not [w for w in ev.warnings if "typo" in w]
+    z[5] -= 1.0
+    ev = evaluate_survey(_survey(az, z, labels=tuple(f"P{i}" for i in range(12))), _tank(), EvaluateConfig(), TABLE)
+    w = [w for w in ev.warnings if "typo" in w]
+    assert len(w) == 1 and "reading P5 at 150.0 deg" in w[0], ev.warnings
+    assert len(ev.survey.elevation) == 12  # kept: the engineer decides

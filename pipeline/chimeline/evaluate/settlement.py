@@ -19,7 +19,7 @@ from scipy import stats
 from ..config import EvaluateConfig
 from ..core.circular import near_sample
 from ..core.rng import Purpose, stream
-from ..core.robust import Z95
+from ..core.robust import MAD_TO_SIGMA, Z95
 from ..io.arctable import ArcTable
 from ..io.surveys import SurveyData
 from ..notices import ILLUSTRATIVE_TABLE
@@ -42,6 +42,25 @@ CURVATURE = "curvature at the deflection spacing (screening)"
 DIPS = "local dips shorter than the deflection spacing (screening)"
 
 
+#: a survey reading this far (m) from the median of the readings, and this many robust standard deviations, is
+#: called out for checking: a typo or a unit slip, common practice in reviewing level surveys
+BLUNDER_DISTANCE, BLUNDER_Z = 0.25, 10.0
+
+
+def blunder_warnings(s: SurveyData) -> list:
+    """Readings that stand far apart from all the others (warned, never removed: the engineer decides)."""
+    z = s.elevation
+    med = float(np.median(z))
+    d = np.abs(z - med)
+    scale = MAD_TO_SIGMA * float(np.median(d))
+    out = []
+    for i in np.flatnonzero((d > BLUNDER_DISTANCE) & (d > BLUNDER_Z * scale)):
+        k = f"{d[i] / scale:.0f} robust standard deviations" if scale > 0 else "all the others agree"
+        out.append(f"reading {s.label[i]} at {s.azimuth_deg[i]:.1f} deg is {d[i] * 1e3:.0f} mm from the median of "
+                   f"the readings ({k}): check it for a typo or a unit slip before relying on the result")
+    return out
+
+
 def evaluate_survey(s: SurveyData, tank: TankData, cfg: EvaluateConfig, table: ArcTable | None,
                     seed: int = 0) -> Evaluation:
     """Evaluate ``s`` for ``tank``; ``table`` is the permissible settled-arc table (None: arcs not assessed)."""
@@ -52,6 +71,8 @@ def evaluate_survey(s: SurveyData, tank: TankData, cfg: EvaluateConfig, table: A
     n = len(z)
     Y, E, H = tank.yield_strength, tank.youngs_modulus, tank.shell_height
     step = float(np.median(np.diff(az))) if s.dense else None
+    if not s.dense:
+        warnings += blunder_warnings(s)
     # 1. tilt plane (the standard's cosine fit) and 2. Fourier regression
     tilt = fit_tilt(az, z, alpha=cfg.alpha, r2_min=cfg.r2_min)
     sel = cfg.order_selection if cfg.order_selection != "auto" else ("blocked_cv" if s.dense else "nested_f")
