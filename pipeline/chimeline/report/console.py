@@ -37,7 +37,7 @@ def verdict_lines(ev, units: str) -> list[str]:
     t = ev.tilt
     second = (f"R^2 rule: R^2 = {t.r_squared:.3f} {'>=' if t.r2_rule_met else '<'} {ev.settings.r2_min}: the standard "
               f"{'accepts' if t.r2_rule_met else 'does not accept'} the cosine fit for B.3.2.1; tilt "
-              f"{t.amplitude * k:.1f} {u} lowest at {t.low_azimuth_deg:.0f} deg, "
+              f"{t.amplitude * k:.{1 if u == 'mm' else 2}f} {u} lowest at {t.low_azimuth_deg:.0f} deg, "
               f"{'a real tilt plane' if t.significant else 'no significant tilt plane'} ({p_text(t.p_value)}, "
               f"{t.decided_by})")
     flags = []

@@ -46,7 +46,8 @@ class _Fmt:
     def small_len(self, v_m, digits=1):
         if v_m is None or not np.isfinite(v_m):
             return "-"
-        return f"{v_m * self.k:.{digits}f} {self.small}"
+        d = digits + (1 if self.small == "in" else 0)  # an inch is 25 mm: one more decimal keeps the precision
+        return f"{v_m * self.k:.{d}f} {self.small}"
 
 
 def _num(v, spec=".3g"):

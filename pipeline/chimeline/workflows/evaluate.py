@@ -17,6 +17,7 @@ from ..io.pdf import pdf_bytes
 from ..io.runfiles import KIND_EVALUATION, FolderInput, kind_guard, provenance_record, with_manifest
 from ..io.surveys import SurveyData, read_survey
 from ..report.evaluation_files import evaluation_outputs
+from ..units import small_length
 
 log = logging.getLogger(__name__)
 
@@ -34,8 +35,9 @@ def survey_from_run(res) -> SurveyData:
 def _evaluate(s: SurveyData, tank, cfg) -> Evaluation:
     table = load_arc_table(cfg.evaluate.arc_table)
     ev = evaluate_survey(s, tank, cfg.evaluate, table, seed=cfg.seed)
-    log.info("evaluate: %s, governed by %s; tilt %.1f mm (R^2 %.3f), Fourier K = %d", ev.verdict, ev.governing,
-             ev.tilt.amplitude * 1e3, ev.tilt.r_squared, ev.fourier.order)
+    k, u = small_length(s.units)
+    log.info("evaluate: %s, governed by %s; tilt %.2f %s (R^2 %.3f), Fourier K = %d", ev.verdict, ev.governing,
+             ev.tilt.amplitude * k, u, ev.tilt.r_squared, ev.fourier.order)
     if cfg.evaluate.decimate:
         if not s.dense:
             ev = dataclasses.replace(ev, warnings=ev.warnings + ("evaluate.decimate applies to dense profiles only; "
