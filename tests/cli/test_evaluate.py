@@ -116,7 +116,7 @@ def test_units_problems(tmp_path):
     base = ["evaluate", str(f), "--out", str(tmp_path / "o"), "--set", "tank.diameter=30", "--set", "tank.shell_height=12"]
     assert_fails(base + ["--set", "tank.yield_strength=250 MPa"], "evaluate.input_units", tmp_path / "o")
     assert_fails(base + ["--set", "tank.yield_strength=250", "--set", "evaluate.input_units=m"], "needs a unit", tmp_path / "o")
-    assert_fails(base + ["--set", "tank.yield_strength=250 kPa", "--set", "evaluate.input_units=m"], "plausible range",
+    assert_fails(base + ["--set", "tank.yield_strength=250 kPa", "--set", "evaluate.input_units=m"], "= 0.25 MPa is outside a plausible range of 100-1000 MPa",
            tmp_path / "o")
     (tmp_path / "profile.json").write_text(json.dumps({"units": "ft"}))
     assert_fails(base + ["--set", "tank.yield_strength=250 MPa", "--set", "evaluate.input_units=m"], "says units 'ft'",

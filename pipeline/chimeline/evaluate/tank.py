@@ -26,11 +26,13 @@ def tank_data(tc: TankConfig, length_unit: str, fitted_diameter_m: float | None 
             raise ConfigError(f"'{key}' needs a unit, e.g. '36 ksi', '250 MPa' or '29e6 psi'; got {val!r}")
     Y = parse_quantity(tc.yield_strength, "stress", "Pa", "tank.yield_strength")
     E = parse_quantity(tc.youngs_modulus, "stress", "Pa", "tank.youngs_modulus")
-    for key, v, lo, hi in (("tank.diameter", D, 1.0, 200.0), ("tank.shell_height", H, 1.0, 50.0),
-                           ("tank.yield_strength", Y, 100e6, 1000e6), ("tank.youngs_modulus", E, 100e9, 300e9)):
+    for key, v, lo, hi, u, k in (("tank.diameter", D, 1.0, 200.0, "m", 1.0),
+                                 ("tank.shell_height", H, 1.0, 50.0, "m", 1.0),
+                                 ("tank.yield_strength", Y, 100e6, 1000e6, "MPa", 1e-6),
+                                 ("tank.youngs_modulus", E, 100e9, 300e9, "GPa", 1e-9)):
         if not lo <= v <= hi:
-            raise ConfigError(f"'{key}' = {v:.4g} (SI) is outside a plausible range [{lo:.3g}, {hi:.3g}] for a steel "
-                              f"tank; check its unit")
+            raise ConfigError(f"'{key}' = {v * k:.4g} {u} is outside a plausible range of {lo * k:.4g}-{hi * k:.4g} "
+                              f"{u} for a steel tank; check its value and unit")
     return TankData(diameter=D, radius=D / 2, shell_height=H, yield_strength=Y, youngs_modulus=E, roof=tc.roof,
                     diameter_source=src)
 
