@@ -9,6 +9,7 @@ import click
 
 from ..notices import CAUTION
 from ..version import __version__
+from .batch import batch
 from .common import setup_logging
 from .compare import compare
 from .demo import demo
@@ -29,6 +30,7 @@ Typical use:
   chimeline evaluate PROFILE.csv --out DIR   settlement evaluation of a profile or survey
   chimeline compare RUN_A RUN_B --out DIR    QA: noise and profile of two runs
   chimeline rerun RUN --set KEY=VALUE --out DIR   run again with changes
+  chimeline batch MANIFEST --out DIR     a fleet of scans on a Dask cluster
 
 Caution: {CAUTION}
 """)
@@ -41,7 +43,7 @@ def cli(ctx, verbose, quiet):
     ctx.obj = {"quiet": quiet}
 
 
-for _command in (demo, synth, run, evaluate, compare, rerun):
+for _command in (demo, synth, run, evaluate, compare, rerun, batch):
     cli.add_command(_command)
 
 
