@@ -228,14 +228,14 @@ def _interval_view(iv) -> dict:
     if ch is not None:
         az, oop, se = ch.largest_out_of_plane
         d.update(n=len(ch.azimuth_deg),
-                 uniform=f"{_mm(ch.mean, 1, True)} +- {_mm(ch.mean_se)} mm ({_mm(ch.rate(ch.mean), 2, True)} +- "
+                 uniform=f"{_mm(ch.mean, 2, True)} ± {_mm(ch.mean_se, 2)} mm ({_mm(ch.rate(ch.mean), 2, True)} ± "
                          f"{_mm(ch.rate(ch.mean_se), 2)} mm per year)",
-                 tilt=f"{_mm(ch.tilt_amplitude)} +- {_mm(ch.tilt_amplitude_se)} mm lowering toward "
+                 tilt=f"{_mm(ch.tilt_amplitude)} ± {_mm(ch.tilt_amplitude_se)} mm lowering toward "
                       f"{ch.tilt_low_azimuth_deg:.0f} deg ({_mm(ch.rate(ch.tilt_amplitude), 2)} mm per year; "
                       f"change {'significant' if ch.tilt_p <= 0.05 else 'not significant'}, {p_text(ch.tilt_p)})",
-                 tilt_rate=(f"{_mm(iv.tilt_amplitude_rate, 2, True)} +- {_mm(iv.tilt_amplitude_rate_se, 2)} mm per year"
+                 tilt_rate=(f"{_mm(iv.tilt_amplitude_rate, 2, True)} ± {_mm(iv.tilt_amplitude_rate_se, 2)} mm per year"
                             if iv.tilt_amplitude_rate is not None else "-"),
-                 oop=f"largest {_mm(oop, 1, True)} +- {_mm(se)} mm at {az:.1f} deg ({_mm(ch.rate(oop), 2, True)} +- "
+                 oop=f"largest {_mm(oop, 1, True)} ± {_mm(se)} mm at {az:.1f} deg ({_mm(ch.rate(oop), 2, True)} ± "
                      f"{_mm(ch.rate(se), 2)} mm per year)",
                  shape=("shape change " + ("significant" if ch.modes_p <= 0.05 else "not significant") +
                         f" ({p_text(ch.modes_p)}, Wald test of the modes k >= 2)") if ch.modes_p is not None else
@@ -243,7 +243,7 @@ def _interval_view(iv) -> dict:
                  fig=png_data_uri(_history_fig(iv)))
     ex = iv.extrapolation
     if ex is not None:
-        rate = f"{ex.rate_per_year:+.4f} +- {ex.rate_se:.4f} per year"
+        rate = f"{ex.rate_per_year:+.4f} ± {ex.rate_se:.4f} per year"
         if ex.status == "extrapolated":
             text = (f"Linear extrapolation: at the current rate ({ex.check}: ratio {ex.ratio_from:.3f} -> "
                     f"{ex.ratio_to:.3f}, {rate}) the ratio would reach 1 around {ex.date} (95 % interval "
@@ -255,7 +255,7 @@ def _interval_view(iv) -> dict:
             text = (f"No extrapolation: the governing ratio ({ex.check}: {ex.ratio_from:.3f} -> {ex.ratio_to:.3f}, "
                     f"{rate}) is {ex.status} (an extrapolation needs a rate whose 95 % interval excludes zero).")
         d["extrapolation"] = text
-        d["method"] = ex.method
+        d["method"] = ex.method[0].upper() + ex.method[1:]
     return d
 
 
@@ -281,7 +281,8 @@ def render_index(rows, histories, manifest: str) -> str:
     hist = []
     for h in histories:
         hist.append({"tag": h.tag, "intervals": [_interval_view(iv) for iv in h.intervals],
-                     "surveys": _rows_view(h.surveys), "note": h.extrapolation_note})
+                     "surveys": _rows_view(h.surveys),
+                     "note": h.extrapolation_note[:1].upper() + h.extrapolation_note[1:]})
     counts = {s: sum(r.status == s for r in rows) for s in ("done", "skipped", "failed")}
     verdicts = {}
     for r in rows:
