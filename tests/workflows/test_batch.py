@@ -181,3 +181,33 @@ def test_scheduler_option_runs_on_an_existing_cluster(fleet, first_batch, schedu
     assert len(failed) == 1 and "broken.las" in failed[0]
     prov = json.loads((out / "provenance.json").read_text())
     assert prov["engine"].startswith(f"the Dask cluster at {scheduler_and_worker}")
+
+
+def test_local_cluster_from_the_cli_skips_then_force_redoes_with_the_same_bytes(fleet, first_batch, tmp_path):
+    """--workers 2 starts (and closes) a local cluster: the done job is skipped (exit 0); --force runs it again and
+    its folder's files come out byte for byte the same (same input, same config)."""
+    from click.testing import CliRunner
+
+    from chimeline.cli import cli
+
+    manifest, _, _, _ = fleet
+    out = first_batch[3]
+    one = tmp_path / "one.csv"
+    one.write_text("\n".join(manifest.read_text().splitlines()[:2]) + "\n")
+    folder = out / "GM-TK-02" / "2023-05-10"
+    before = {p.name: p.read_bytes() for p in folder.iterdir() if p.is_file()}
+    args = ["batch", str(one), "--out", str(out), "--workers", "2", "--memory-limit", "2GiB"]
+    r = CliRunner().invoke(cli, args)
+    assert r.exit_code == 0, cli_output(r)
+    assert "[1/1] GM-TK-02 2023-05-10: skipped" in cli_output(r)
+    assert "a local Dask cluster of 2 worker processes, 2.0 GiB each" in cli_output(r)
+    r = CliRunner().invoke(cli, args + ["--force"])
+    assert r.exit_code == 0, cli_output(r)
+    assert "[1/1] GM-TK-02 2023-05-10: done" in cli_output(r)
+    after = {p.name: p.read_bytes() for p in folder.iterdir() if p.is_file()}
+    assert sorted(before) == sorted(after)
+    changed = [n for n in before if before[n] != after[n]]
+    assert set(changed) <= {"profile.json"}, changed  # its timings_s are the only wall-clock values
+    a, b = (json.loads(x["profile.json"]) for x in (before, after))
+    a.pop("timings_s"), b.pop("timings_s")
+    assert a == b
