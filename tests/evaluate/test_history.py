@@ -123,3 +123,26 @@ def test_amplitude_rate_projects_the_change_on_the_tilt_direction():
                            15.0, dense=True)
     rate, rse = amplitude_rate(-0.010, 0.0, -0.013, 0.0, ch)  # tilt lowest at 0 deg: b = -amplitude
     assert rate == pytest.approx(0.003 / ch.years) and rse == pytest.approx(math.sqrt(ch.tilt_cov[0, 0]) / ch.years)
+
+
+def test_tilt_and_shape_tests_agree_with_statsmodels_wls():
+    """A 24-point survey difference (nested F order selection, no autocorrelation correction): the Wald F tests of
+    the tilt change and of the modes k >= 2 equal statsmodels' WLS f_test on the same design (outside reference)."""
+    sm = pytest.importorskip("statsmodels.api")
+    from chimeline.evaluate.fourier import design
+
+    rng = np.random.default_rng(11)
+    az = np.arange(0, 360, 15.0)
+    se = np.full(len(az), 0.002)
+    ok = np.ones(len(az), bool)
+    a = _profile(az, 0.0, 0.010, 60, [], rng, 0.002)
+    b = _profile(az, -0.004, 0.016, 60, [(2, 0.006, 10)], rng, 0.002)
+    pd = profile_difference(az, a, se, ok, 0.0, az, b, se, ok, 0.0)
+    ch = settlement_change("2019-03-01", "2024-03-01", pd, 20.0, dense=False)
+    assert ch.model_order >= 2
+    X = design(np.radians(np.asarray(pd["azimuth_deg"])), ch.model_order)
+    res = sm.WLS(np.asarray(pd["difference"]), X, weights=1 / np.asarray(pd["difference_sd"]) ** 2).fit()
+    k = X.shape[1]
+    assert ch.tilt_p == pytest.approx(float(res.f_test(np.eye(k)[1:3]).pvalue), rel=1e-6)
+    assert ch.modes_p == pytest.approx(float(res.f_test(np.eye(k)[3:]).pvalue), rel=1e-6)
+    assert (ch.tilt_b, ch.tilt_c) == pytest.approx((res.params[1], res.params[2]), rel=1e-9)

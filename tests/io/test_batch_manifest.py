@@ -1,8 +1,11 @@
 """The batch manifest: CSV and YAML give the same jobs, paths relative to the manifest, and every mistake is one
 ConfigError naming the manifest and the row."""
+import re
 from pathlib import Path
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from chimeline.errors import ConfigError
 from chimeline.io.batch_manifest import read_batch_manifest
@@ -93,3 +96,28 @@ def test_other_files_are_refused(tmp_path):
     (tmp_path / "m.txt").write_text("scan,tag,survey_date\n")
     with pytest.raises(ConfigError, match="must be .csv, .yaml or .yml"):
         read_batch_manifest(tmp_path / "m.txt")
+
+
+cell = st.one_of(st.text(alphabet=st.characters(blacklist_categories=("Cs",)), max_size=12),
+                 st.sampled_from(["a.las", "GM-TK-07", "2024-06-15", "run", "evaluate", "seed=3", "x=", "../t",
+                                  "2024-6-1", '"', ",", ";", "#", " ", "\t"]))
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(header=st.lists(st.sampled_from(["scan", "tag", "survey_date", "config", "set", "kind", "Scan", "other"]),
+                       min_size=1, max_size=6),
+       rows=st.lists(st.lists(cell, max_size=7), max_size=5))
+def test_any_csv_either_parses_or_is_one_config_error_line(tmp_path_factory, header, rows):
+    """Whatever the table, the parser returns jobs whose fields meet the rules, or one ConfigError line naming the
+    manifest; never another exception."""
+    p = tmp_path_factory.mktemp("m") / "fleet.csv"
+    p.write_text("\n".join([",".join(header)] + [",".join(r) for r in rows]) + "\n", encoding="utf-8")
+    try:
+        m = read_batch_manifest(p)
+    except ConfigError as exc:
+        assert "\n" not in str(exc) and str(p) in str(exc)
+        return
+    for j in m.jobs:
+        assert j.kind in ("run", "evaluate") and j.scan.is_absolute()
+        assert re.fullmatch(r"\d{4}-\d{2}-\d{2}", j.survey_date) and "/" not in j.tag and not j.tag.startswith(".")
+    assert len({(j.tag, j.survey_date) for j in m.jobs}) == len(m.jobs)
