@@ -137,6 +137,7 @@ def scheduler_and_worker(tmp_path):
     procs = [subprocess.Popen([sys.executable, "-m", "dask", "scheduler", "--host", "127.0.0.1", "--port", "0",
                                "--no-dashboard", "--scheduler-file", str(sf)], env=env,
                               stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)]
+    address = None
     try:
         t0 = time.monotonic()
         while not sf.exists() or not sf.read_text().strip():
@@ -148,8 +149,19 @@ def scheduler_and_worker(tmp_path):
                                       stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL))
         yield address
     finally:
+        if address is not None:  # the scheduler stops its workers and itself; faster than SIGTERM to the worker
+            from distributed import Client
+
+            try:
+                with Client(address, timeout="10s", set_as_default=False) as c:
+                    c.shutdown()
+            except (OSError, TimeoutError):
+                pass
         for p in reversed(procs):
-            p.terminate()
+            try:
+                p.wait(timeout=10)
+            except subprocess.TimeoutExpired:
+                p.terminate()
         for p in reversed(procs):
             try:
                 p.wait(timeout=20)
