@@ -50,3 +50,11 @@ def test_survey_history_in_metres(tmp_path, unit_name, unit):
     else:
         assert "linear extrapolation" in ex.method
         assert (ex.status == "extrapolated") == ex.significant or ex.status == "reached"
+
+
+def test_registration_unobserved_only_for_several_stations_without_a_datum_spread():
+    from chimeline.workflows.fleet import registration_unobserved
+
+    assert registration_unobserved({"stations": [{}, {}, {}], "datum_sigma": 0.0})
+    assert not registration_unobserved({"stations": [{}, {}, {}], "datum_sigma": 2e-4})
+    assert not registration_unobserved({"stations": [{}], "datum_sigma": 0.0})  # one station: nothing to register

@@ -83,7 +83,9 @@ def batch(ctx, manifest, out_dir, workers, memory_limit, scheduler, retries, for
         text = f"history {h.tag}: {len(h.surveys)} surveys"
         if ex is not None and ex.status == "extrapolated":
             text += (f"; {ex.check} ratio would reach 1 around {ex.date} at the current rate (linear extrapolation, "
-                     f"95 % interval {ex.date_ci95[0]} to {ex.date_ci95[1]})")
+                     f"95 % interval {ex.date_ci95[0]} to {ex.date_ci95[1]}"
+                     + ("; ILLUSTRATIVE arc table: demonstration only" if h.surveys[-1].illustrative
+                        and "B.3.2.2" in ex.check else "") + ")")
         elif ex is not None:
             text += f"; governing ratio trend: {ex.status}"
         click.echo(text)

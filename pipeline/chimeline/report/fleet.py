@@ -10,7 +10,7 @@ import math
 
 from ..core.robust import Z95
 from ..io.atomic import json_text
-from ..notices import CAUTION, VERTICAL_REFERENCE
+from ..notices import CAUTION, ILLUSTRATIVE_TABLE, VERTICAL_REFERENCE
 from ..version import __version__
 from .console import p_text
 from .html import png_data_uri, template_env
@@ -18,7 +18,7 @@ from .mpl import BAND, INK, MEASURED, MUTED, new_figure, png_bytes
 
 FLEET_COLUMNS = ("tag", "survey_date", "kind", "status", "verdict", "governing", "max_ratio", "max_ratio_upper95",
                  "tilt_amplitude_m", "tilt_low_azimuth_deg", "noise_sigma_m", "coverage", "center_x_m", "center_y_m",
-                 "radius_m", "error", "folder", "report")
+                 "radius_m", "arc_table_illustrative", "error", "folder", "report")
 HISTORY_COLUMNS = ("from_date", "to_date", "years", "azimuth_deg", "difference_m", "difference_se_m",
                    "rate_m_per_year", "rate_se_m_per_year", "out_of_plane_change_m", "out_of_plane_change_se_m",
                    "out_of_plane_rate_m_per_year", "out_of_plane_rate_se_m_per_year")
@@ -42,6 +42,8 @@ def _c(v) -> str:
         return ""
     if isinstance(v, str):
         return v
+    if isinstance(v, bool):
+        return "true" if v else "false"
     v = float(v)
     return repr(v) if math.isfinite(v) else ""
 
@@ -52,7 +54,8 @@ def _row_dict(r) -> dict:
             "tilt_amplitude_m": _f(r.tilt_amplitude), "tilt_low_azimuth_deg": _f(r.tilt_low_azimuth_deg),
             "noise_sigma_m": _f(r.noise_sigma), "coverage": _f(r.coverage),
             "center_x_m": _f(r.center[0]) if r.center else None, "center_y_m": _f(r.center[1]) if r.center else None,
-            "radius_m": _f(r.radius), "error": r.error, "folder": r.folder, "report": r.report}
+            "radius_m": _f(r.radius), "arc_table_illustrative": r.illustrative, "error": r.error, "folder": r.folder,
+            "report": r.report}
 
 
 def fleet_csv(rows) -> str:
@@ -114,12 +117,14 @@ def history_json(h) -> str:
            "intervals": []}
     for iv in h.intervals:
         d = {"from_date": iv.from_date, "to_date": iv.to_date, "years": _f(iv.years), "note": iv.note,
+             "caveat": iv.caveat,
              "tilt_amplitude_rate_per_year": _f(iv.tilt_amplitude_rate),
              "tilt_amplitude_rate_se": _f(iv.tilt_amplitude_rate_se)}
         if iv.change is not None:
             d.update(_change_dict(iv.change))
         if iv.extrapolation is not None:
             d["extrapolation"] = _extrapolation_dict(iv.extrapolation)
+            d["extrapolation"]["arc_table_illustrative"] = bool(h.surveys and h.surveys[-1].illustrative)
         out["intervals"].append(d)
     out["extrapolation_note"] = h.extrapolation_note
     return json_text(out)
@@ -221,10 +226,10 @@ def _history_fig(iv) -> bytes:
     return png_bytes(fig)
 
 
-def _interval_view(iv) -> dict:
+def _interval_view(iv, illustrative: bool = False) -> dict:
     ch = iv.change
     d = {"from": iv.from_date, "to": iv.to_date, "years": f"{iv.years:.2f}", "note": iv.note, "fig": None, "n": None,
-         "extrapolation": None, "method": ""}
+         "extrapolation": None, "method": "", "caveat": iv.caveat[:1].upper() + iv.caveat[1:]}
     if ch is not None:
         az, oop, se = ch.largest_out_of_plane
         d.update(n=len(ch.azimuth_deg),
@@ -254,6 +259,8 @@ def _interval_view(iv) -> dict:
         else:
             text = (f"No extrapolation: the governing ratio ({ex.check}: {ex.ratio_from:.3f} -> {ex.ratio_to:.3f}, "
                     f"{rate}) is {ex.status} (an extrapolation needs a rate whose 95 % interval excludes zero).")
+        if illustrative and "B.3.2.2" in ex.check:
+            text += f" The ratio is against the {ILLUSTRATIVE_TABLE}."
         d["extrapolation"] = text
         d["method"] = ex.method[0].upper() + ex.method[1:]
     return d
@@ -265,7 +272,8 @@ def _rows_view(rows) -> list:
         ratio = (f"{r.max_ratio:.3f}" + (f" ({r.max_ratio_upper95:.3f})" if r.max_ratio_upper95 is not None else "")
                  if r.max_ratio is not None else "-")
         out.append({"tag": r.tag, "date": r.survey_date, "kind": r.kind, "status": r.status,
-                    "verdict": r.verdict or "-", "governing": r.governing or "-", "ratio": ratio,
+                    "verdict": r.verdict or "-", "illustrative": r.illustrative, "governing": r.governing or "-",
+                    "ratio": ratio,
                     "ratio_sort": "" if r.max_ratio is None else f"{r.max_ratio!r}",
                     "tilt": (f"{_mm(r.tilt_amplitude)} mm at {r.tilt_low_azimuth_deg:.0f} deg"
                              if r.tilt_amplitude is not None else "-"),
@@ -280,7 +288,8 @@ def _rows_view(rows) -> list:
 def render_index(rows, histories, manifest: str) -> str:
     hist = []
     for h in histories:
-        hist.append({"tag": h.tag, "intervals": [_interval_view(iv) for iv in h.intervals],
+        illus = bool(h.surveys) and h.surveys[-1].illustrative
+        hist.append({"tag": h.tag, "intervals": [_interval_view(iv, illus) for iv in h.intervals],
                      "surveys": _rows_view(h.surveys),
                      "note": h.extrapolation_note[:1].upper() + h.extrapolation_note[1:]})
     counts = {s: sum(r.status == s for r in rows) for s in ("done", "skipped", "failed")}
@@ -291,7 +300,7 @@ def render_index(rows, histories, manifest: str) -> str:
     return template_env().get_template("fleet.html.j2").render(
         version=__version__, caution=CAUTION, manifest=manifest, rows=_rows_view(rows), counts=counts,
         verdicts=verdicts, n_tanks=len({r.tag for r in rows}), plan=_plan(rows), histories=hist,
-        scope=HISTORY_SCOPE)
+        scope=HISTORY_SCOPE, illustrative=ILLUSTRATIVE_TABLE if any(r.illustrative for r in rows) else "")
 
 
 def fleet_outputs(rows, histories, *, manifest: str) -> dict:

@@ -23,6 +23,7 @@ from ..evaluate.comparison import profile_difference
 from ..evaluate.history import (Extrapolation, SettlementChange, amplitude_rate, extrapolate_ratio, settlement_change,
                                 years_between)
 from ..io.runfiles import EVALUATION_JSON, read_json, read_run_folder
+from ..notices import UNOBSERVED_REGISTRATION
 from ..units import LENGTH_FACTORS
 from .compare import load_run, profile_change
 
@@ -53,6 +54,7 @@ class FleetRow:
     center: Optional[tuple] = None  # (x, y) m in the scan's coordinates (runs only)
     radius: Optional[float] = None  # m, fitted shell radius at the base (runs only)
     report: Optional[str] = None  # report.html relative to the batch folder
+    illustrative: bool = False  # the verdict used the packaged ILLUSTRATIVE settled-arc table
     seconds: Optional[float] = None  # s, the job's wall time on its worker (None: skipped or unknown)
 
     @property
@@ -87,7 +89,10 @@ def _evaluation_fields(ev: Optional[dict]) -> dict:
     worst = max(checks, key=lambda c: c["ratio"]) if checks else None
     tilt = ev.get("tilt") or {}
     amp = tilt.get("amplitude")
+    table = ev.get("arc_table") or {}
     return {"verdict": ev.get("verdict"), "governing": ev.get("governing"),
+            "illustrative": bool(table.get("illustrative")) and any("B.3.2.2" in (c.get("clause") or "")
+                                                                    for c in checks),
             "max_ratio": worst["ratio"] if worst else None,
             "max_ratio_upper95": worst.get("ratio_upper95") if worst else None,
             "tilt_amplitude": amp * f if amp is not None else None,
@@ -135,6 +140,7 @@ class Interval:
     tilt_amplitude_rate: Optional[float] = None  # m/year, rate of the tilt amplitude (from the two evaluations)
     tilt_amplitude_rate_se: Optional[float] = None  # m/year, 1 sigma
     extrapolation: Optional[Extrapolation] = None  # the governing ratio's trend (the latest interval only)
+    caveat: str = ""  # in words: what the uncertainties above leave out, or ""
     units: str = "m"  # every length above is in metres
 
 
@@ -189,14 +195,24 @@ def _vertical_reference(out_dir: Path, row: FleetRow) -> float:
     return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else 0.0
 
 
+def registration_unobserved(run: dict) -> bool:
+    """A run (``load_run``) of several stations whose datum spread is exactly zero: no two stations shared a bin,
+    so their relative registration was not measured and is not in the profile's standard errors."""
+    return len(run.get("stations") or []) >= 2 and not run.get("datum_sigma")
+
+
 def _interval(out_dir: Path, a: FleetRow, b: FleetRow) -> Interval:
     years = years_between(a.survey_date, b.survey_date)
     ev_a, ev_b = _evaluation_of(out_dir, a), _evaluation_of(out_dir, b)
-    change, note = None, ""
+    change, note, caveat = None, "", ""
     if a.kind == "run" and b.kind == "run":
         ra, rb = load_run(Path(out_dir) / a.folder), load_run(Path(out_dir) / b.folder)
         same, pd = profile_change(ra, rb)
         radius, dense = rb["radius"], True
+        blind = [x.survey_date for x, r in ((a, ra), (b, rb)) if registration_unobserved(r)]
+        if blind:
+            scans = " and ".join(blind) + (" scans" if len(blind) > 1 else " scan")
+            caveat = UNOBSERVED_REGISTRATION.format(scans=scans)
         if not same:
             note = ("the two scans are not in one coordinate frame (shell centres or radii differ): profiles not "
                     "compared; tie both scans to the site's control")
@@ -223,7 +239,7 @@ def _interval(out_dir: Path, a: FleetRow, b: FleetRow) -> Interval:
     if change is not None and ta is not None and tb is not None:
         rate, rate_se = amplitude_rate(*ta, *tb, change)
     return Interval(from_date=a.survey_date, to_date=b.survey_date, years=years, change=change, note=note,
-                    tilt_amplitude_rate=rate, tilt_amplitude_rate_se=rate_se)
+                    tilt_amplitude_rate=rate, tilt_amplitude_rate_se=rate_se, caveat=caveat if change else "")
 
 
 def _extrapolation(out_dir: Path, a: FleetRow, b: FleetRow) -> tuple:
