@@ -47,3 +47,11 @@ def small_reference(simulate):
     scan, _ = simulate("small_tank.yaml", 91)
     cfg, resolved, s = load_config()
     return scan, process_scan(scan, cfg, resolved, s)
+
+
+# property-based tests (hypothesis): bounded, reproducible (derandomized), no example database in the tree
+from hypothesis import HealthCheck, settings  # noqa: E402
+
+settings.register_profile("chimeline", max_examples=60, deadline=None, derandomize=True, database=None,
+                          suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
+settings.load_profile("chimeline")

@@ -2,7 +2,11 @@
 from __future__ import annotations
 
 import copy
+import os
 import shutil
+import subprocess
+import sys
+import tarfile
 from pathlib import Path
 
 import numpy as np
@@ -86,10 +90,6 @@ CACHE = ROOT / "tests" / ".cache"
 def laspy_corpus() -> list[Path]:
     """The LAS/LAZ files of laspy's own test data (its source distribution, the installed version), downloaded
     once into tests/.cache. Offline: the test is skipped, except in CI (env CI set), where it fails."""
-    import os
-    import subprocess
-    import sys
-    import tarfile
 
     import laspy
     import pytest
@@ -120,3 +120,12 @@ def laspy_corpus() -> list[Path]:
             except TypeError:  # Python without extraction filters (before 3.10.12 / 3.11.4)
                 tar.extractall(CACHE, members=members)
     return sorted(p for p in folder.iterdir() if p.suffix.lower() in (".las", ".laz"))
+def make_immutable(path, on: bool = True) -> bool:
+    """chattr +i (or -i): a folder even root cannot write into (ext4 and others); False where chattr cannot."""
+    import subprocess
+
+    try:
+        subprocess.run(["chattr", "+i" if on else "-i", str(path)], check=True, capture_output=True)
+        return True
+    except (OSError, subprocess.CalledProcessError):
+        return False

@@ -1,6 +1,7 @@
 """Config schema: the embedded default, unknown keys, types, ranges, --set merging."""
 import dataclasses
 import importlib.resources
+import re
 
 import pytest
 import yaml
@@ -129,3 +130,76 @@ def test_load_config_from_a_mapping_names_its_source():
     assert cfg.profile.bin_width_deg == 2.0 and source == "runs/a/x.yaml"
     with pytest.raises(ConfigError, match="runs/a/x.yaml: 'profile.bin_width_deg'"):
         load_config(mapping={"profile": {"bin_width_deg": -2.0}}, mapping_source="runs/a/x.yaml")
+
+
+def _numeric_fields(cls, prefix=""):
+    """(dotted key, metadata) of every numeric field (int, float, tuples of them, optional or with a text form) of a
+    schema dataclass and its nested sections."""
+    import typing
+
+    out = []
+    hints = typing.get_type_hints(cls)
+    for f in dataclasses.fields(cls):
+        tp = hints[f.name]
+        args = [a for a in typing.get_args(tp) if a is not type(None)] or [tp]
+        inner = [typing.get_args(a)[0] if typing.get_origin(a) is tuple and typing.get_args(a) else a for a in args]
+        if any(dataclasses.is_dataclass(a) for a in inner):
+            for a in inner:
+                if dataclasses.is_dataclass(a):
+                    out += _numeric_fields(a, f"{prefix}{f.name}.")
+        elif any(a in (int, float) for a in inner):
+            out.append((f"{prefix}{f.name}", f.metadata))
+    return out
+
+
+def test_every_numeric_key_has_a_finite_range():
+    """Config and simulator scene: no number is unbounded (an unchecked bin_arc_length once asked for 281 GiB)."""
+    from chimeline.synth.scene import Scene
+
+    keys = _numeric_fields(ChimelineConfig) + [(f"scene:{k}", md) for k, md in _numeric_fields(Scene)]
+    assert len(keys) > 80
+    unbounded = [k for k, md in keys if md.get("min") is None or md.get("max") is None
+                 or not all(map(lambda v: abs(v) < float("inf"), (md["min"], md["max"])))]
+    assert unbounded == []
+
+
+@pytest.mark.parametrize("text,phrase", [
+    ("profile: " + "[" * 40 + "]" * 40, "nested deeper than 32 levels"),
+    ("a: &a [1, 2, 3, 4, 5, 6, 7, 8, 9, 10]\n" + "".join(
+        f"{c}: &{c} [" + ", ".join([f"*{p}"] * 10) + "]\n" for p, c in zip("abcde", "bcdef")), "alias bomb"),
+    ("a: &a [*a]\n", "its own ancestor"),
+    ("profile:\n  min_points: 4\n  min_points: 5\n", "line 3: duplicate key 'min_points'"),
+    ("tank:\n  survey_date: 2026-13-45\n", "'tank.survey_date' must be a calendar date YYYY-MM-DD"),
+    ("tank:\n  survey_date: 2025-02-29\n", "'tank.survey_date'"),  # not a leap year
+    ("tank:\n  diameter: '10**10**10 m'\n", "'tank.diameter' must be a number and a unit"),
+    ("seed: !!float\n", "cannot be read"),
+])
+def test_yaml_limits_and_dates(tmp_path, text, phrase):
+    p = tmp_path / "c.yaml"
+    p.write_text(text)
+    with pytest.raises(ConfigError, match=re.escape(phrase)) as e:
+        load_config(p)
+    assert str(e.value).startswith(str(p)) and len(str(e.value)) < 300
+
+
+def test_valid_dates_and_anchors_still_load(tmp_path):
+    p = tmp_path / "c.yaml"
+    p.write_text("tank:\n  survey_date: 2024-02-29\n  tag: &t TK-9\nprofile: {min_points: 5}\n")
+    cfg, resolved, _ = load_config(p)
+    assert cfg.tank.survey_date == "2024-02-29" and resolved["tank"]["survey_date"] == "2024-02-29"
+
+
+def test_values_are_clipped_in_messages():
+    huge = ["x" * 1000] * 1000
+    with pytest.raises(ConfigError) as e:
+        load_config(None, [("tank.tag", huge)])
+    assert len(str(e.value)) < 200 and "..." in str(e.value)
+
+
+def test_set_merges_a_mapping_into_its_section_and_refuses_resetting_it(tmp_path):
+    p = tmp_path / "c.yaml"
+    p.write_text("profile:\n  min_points: 7\n")
+    cfg, _, _ = load_config(p, [("profile", {"bin_width_deg": 2.0})])
+    assert cfg.profile.min_points == 7 and cfg.profile.bin_width_deg == 2.0  # merged, not replaced
+    with pytest.raises(ConfigError, match="--set profile: 'profile' is a section"):
+        load_config(p, [("profile", None)])

@@ -8,8 +8,10 @@ international feet or US survey feet; the two feet differ by 2 ppm, which is
 from __future__ import annotations
 
 import functools
+import math
+import re
 
-from .errors import ConfigError
+from .errors import ConfigError, clip_repr
 
 #: metres per international foot (exact by the 1959 agreement) and per inch
 FOOT = 0.3048
@@ -52,30 +54,55 @@ def _registry():
     return pint.UnitRegistry()
 
 
-def parse_quantity(value, kind: str, default_unit: str, key: str, source: str = "config") -> float:
-    """Parse a number or a string with units ("36 ksi", "250 MPa", "40 ft") to SI.
+#: SI unit (pint name) of each kind of quantity a config may give as "number unit"
+QUANTITY_KINDS = {"length": "meter", "stress": "pascal"}
 
-    kind is "length" (returns metres) or "stress" (returns pascals). A bare
-    number is taken in `default_unit` (a pint unit name).
+#: "number unit": a decimal number (exponent of at most three digits) and a unit name made of letters, optionally
+#: "per" a second name with a power of 2 or 3 ("36 ksi", "250 MPa", "40 ft", "250 N/mm^2"). Nothing
+#: else is accepted, so a value is never evaluated as an expression ("10**10**10 m" would take forever).
+_QUANTITY = re.compile(r"\s*(?P<num>[+-]?(?:\d{1,30}(?:\.\d{0,30})?|\.\d{1,30})(?:[eE][+-]?\d{1,3})?)\s*"
+                       r"(?P<unit>[A-Za-z_]{1,30}(?:\s*/\s*[A-Za-z_]{1,30}(?:\^[23]|\*\*[23])?)?)?\s*")
+
+
+def split_quantity(text: str) -> tuple[float, str | None]:
+    """("36 ksi") -> (36.0, "ksi"); a bare number gives unit None. Raises ValueError for anything else."""
+    m = _QUANTITY.fullmatch(text) if len(text) <= 80 else None
+    if m is None:
+        raise ValueError("not a number followed by a unit")
+    value = float(m.group("num"))
+    if not math.isfinite(value):
+        raise ValueError("not a finite number")
+    unit = m.group("unit")
+    return value, (re.sub(r"\s+", "", unit) if unit else None)
+
+
+def parse_quantity(value, kind: str, default_unit: str | None, key: str, source: str = "config") -> float | None:
+    """Parse a number or a string "number unit" ("36 ksi", "250 MPa", "40 ft") to SI.
+
+    kind is "length" (returns metres) or "stress" (returns pascals). A bare number is taken in `default_unit` (a
+    pint unit name); with ``default_unit`` None a bare number is only checked and None is returned.
     """
-    ureg = _registry()
-    target = {"length": "meter", "stress": "pascal"}[kind]
+    example = "40 ft" if kind == "length" else "250 MPa"
+    target = QUANTITY_KINDS[kind]
+    if isinstance(value, bool) or not isinstance(value, (int, float, str)):
+        raise ConfigError(f"{source}: '{key}' must be a number or a quantity string like {example!r}, "
+                          f"got {clip_repr(value)}")
     try:
-        if isinstance(value, bool):
-            raise TypeError
-        if isinstance(value, (int, float)):
-            q = ureg.Quantity(float(value), default_unit)
-        elif isinstance(value, str):
-            q = ureg.Quantity(value.strip())
-            if q.dimensionless:
-                q = ureg.Quantity(float(q.magnitude), default_unit)
+        if isinstance(value, str):
+            number, unit = split_quantity(value)
         else:
-            raise TypeError
+            number, unit = float(value), None
+            if not math.isfinite(number):
+                raise ValueError("not a finite number")
+    except (ValueError, OverflowError):
+        raise ConfigError(f"{source}: '{key}' must be a number and a unit like {example!r}, got "
+                          f"{clip_repr(value)}") from None
+    if unit is None and default_unit is None:
+        return None
+    ureg = _registry()
+    try:
+        q = ureg.Quantity(number, ureg.parse_units(unit or default_unit))
         return float(q.to(target).magnitude)
-    except TypeError:
-        raise ConfigError(f"{source}: '{key}' must be a number or a quantity string like '36 ksi', got {value!r}") from None
-    except Exception as exc:  # pint raises several unrelated types
-        raise ConfigError(
-            f"{source}: '{key}' must be a {kind} (e.g. {'40 ft' if kind == 'length' else '250 MPa'}), "
-            f"got {value!r} ({type(exc).__name__})"
-        ) from None
+    except Exception as exc:  # pint raises several unrelated types (undefined unit, wrong dimension)
+        raise ConfigError(f"{source}: '{key}' must be a {kind} (e.g. {example}), got {clip_repr(value)} "
+                          f"({type(exc).__name__})") from None

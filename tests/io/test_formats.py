@@ -3,8 +3,8 @@
 The reference is the simulator's LAS 1.4 file (0.1 mm scale). Formats that keep the points in the same order read
 the same detection sample (windows on 50 000-point boundaries), so their profiles equal the LAS profile within the
 file's scale. COPC stores the points in octree order, so its sample and face thinning differ; PTX and E57 store
-each station in its own frame, so coordinates come back through a pose with rounding: for these the median
-difference stays within the scale and 99 % of the ok bins within one standard error.
+each station in its own frame, so coordinates come back through a pose with rounding, and PTS text is rounded to
+0.05 mm: for these the median difference stays within the scale and 99 % of the ok bins within one standard error.
 """
 import numpy as np
 import pytest
@@ -78,9 +78,10 @@ def test_every_format_gives_the_same_points_and_profile(reference, fmt):
     ok = (a.status == "ok") & (b.status == "ok")
     assert ok.mean() > 0.95
     d = np.abs(a.elevation[ok] - b.elevation[ok])
-    if fmt in ("copc", "ptx", "e57"):
-        # COPC: other sample; PTX/E57: coordinates moved through each station's pose differ by ~1e-9 m, enough to
-        # flip a rejection decision in a marginal bin
+    if fmt in ("copc", "ptx", "e57", "pts"):
+        # COPC: other sample; PTX/E57: coordinates moved through each station's pose differ by ~1e-9 m; PTS: text
+        # rounded to 0.05 mm. Any of these is enough to flip a rejection decision in a marginal bin, and the noise
+        # rounds re-reject with the measured noise, so one flipped point moves a bin by a fraction of its SE
         assert np.median(d) <= SCALE and np.quantile(d / a.std_error[ok], 0.99) < 1.0
         assert (a.status == b.status).mean() > 0.98
     else:

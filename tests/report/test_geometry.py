@@ -93,7 +93,7 @@ def test_geometry_can_be_switched_off(small_scan, tmp_path):
 @pytest.mark.parametrize("key,value,phrase", [
     ("geometry.plumb_tolerance", "sideways", "'geometry.plumb_tolerance'"),
     ("geometry.radius_tolerance_table", "[[0, 0.0127], [50, 0.02], [40, 0.03]]", "'geometry.radius_tolerance_table'"),
-    ("geometry.roundness_heights", "[0.01]", "'geometry.roundness_heights'"),
+    ("geometry.roundness_heights", "[0.01]", "'geometry.roundness_heights[0]'"),  # the element is named
     ("geometry.face_budget", "10", "'geometry.face_budget'"),
 ])
 def test_bad_geometry_config_is_one_line_exit_2(small_scan, tmp_path, key, value, phrase):

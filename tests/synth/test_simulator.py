@@ -242,3 +242,85 @@ def test_truth_file_carries_the_shell_geometry(tmp_path, small_scene):
     # away from the lean the top course's 6 mm inward step adds to it
     lean = 0.02 / 6.0 * (pl["heights"][-1] - 0.3)
     assert max(map(max, pl["offset_total"])) == pytest.approx(lean + 0.006, rel=0.03)
+
+
+def _near_base(d):
+    """Returns near the main tank's base: (mask, height above the junction, distance outside the shell)."""
+    tank = d["simulator"].tank
+    q = tank.to_tank(d["xyz_unregistered"])
+    az = G.azimuth(q[:, 0], q[:, 1])
+    h = q[:, 2] - tank.u(az)
+    out = np.hypot(q[:, 0], q[:, 1]) - tank.r_base(az)
+    return (np.abs(h) < 0.1) & (out > -0.03) & (out < tank.w + 0.1), h, out
+
+
+def test_footprint_mixing_at_the_crease_and_the_edge():
+    """Heavy mixing at the shell/plate crease and the plate's outer edge: many more mixed returns at the base,
+    each between the two surfaces its footprint straddles; with both probabilities 0 the scan is unchanged."""
+    base = scene_mapping("small_tank.yaml")
+    plain = collect(scene_from_mapping(base))
+    zero = collect(scene_from_mapping(scene_mapping("small_tank.yaml", stations__common__crease_mixed_prob=0.0,
+                                                    stations__common__edge_mixed_prob=0.0)))
+    np.testing.assert_array_equal(plain["xyz"], zero["xyz"])
+    heavy = collect(scene_from_mapping(scene_mapping("small_tank.yaml", stations__common__crease_mixed_prob=0.35,
+                                                     stations__common__edge_mixed_prob=0.6)))
+    near0, _, _ = _near_base(plain)
+    near1, h, out = _near_base(heavy)
+    mixed0 = (plain["label"] == G.MIXED) & near0
+    mixed1 = (heavy["label"] == G.MIXED) & near1
+    assert mixed1.sum() > 5 * max(mixed0.sum(), 1)
+    # the same rays are cast in the same order: mixing changes labels and ranges, not the rays
+    assert len(heavy["xyz"]) == len(plain["xyz"])
+    np.testing.assert_array_equal(heavy["xyz_true"], plain["xyz_true"])
+    # a return mixed at the crease or the edge lies between the surfaces: no higher above the plate than twice
+    # a footprint (6.4 mm at 7 m here), no lower than the foundation under the edge (8 mm) by more than the noise
+    new = mixed1 & (plain["label"] != G.MIXED)
+    tk = heavy["simulator"].tank
+    assert np.percentile(h[new], 99) < 0.015 and np.percentile(h[new], 1) > -(tk.thk + 0.01)
+    # returns on the plate top that are not mixed keep the injected noise: the truth's plate-top noise does not
+    # grow with the mixing (it counts unmixed returns only)
+    top0 = plain["label"] == G.PLATE_TOP
+    top1 = heavy["label"] == G.PLATE_TOP
+    rms = [np.sqrt(np.mean((d["xyz_unregistered"][m, 2] - d["xyz_true"][m, 2]) ** 2)) for d, m in
+           ((plain, top0), (heavy, top1))]
+    assert rms[1] == pytest.approx(rms[0], rel=0.25)
+
+
+@pytest.mark.parametrize("fmt", ["las14", "xyz"])
+def test_merged_output_without_station_ids(tmp_path, fmt):
+    from chimeline.io.readers import open_scan
+
+    m = scene_mapping("small_tank.yaml")
+    m["output"] = {"format": fmt, "station_ids": False}
+    res = run_synth(scene_from_mapping(m), tmp_path)
+    src = open_scan(res.scan_path)
+    sid = next(src.chunks(10 ** 8)).source_id
+    assert sid is None or not np.any(sid)  # no station ids: the readers give none (or all 0)
+    if fmt == "las14":
+        assert not np.any(np.asarray(laspy.read(res.scan_path).point_source_id))
+    else:
+        assert res.scan_path.read_text().splitlines()[1].count(" ") == 3  # x y z intensity
+    assert res.truth["station_ids"] is False
+
+
+def test_coarse_file_scale(tmp_path):
+    """output.scale sets the LAS scale factor: every coordinate lies on the grid (laspy as the outside reader)."""
+    m = scene_mapping("small_tank.yaml")
+    m["output"] = {"format": "las14", "scale": 0.01}
+    res = run_synth(scene_from_mapping(m), tmp_path)
+    las = laspy.read(res.scan_path)
+    np.testing.assert_allclose(las.header.scales, [0.01] * 3)
+    z = np.asarray(las.z)
+    assert np.abs(z / 0.01 - np.round(z / 0.01)).max() < 1e-6
+    assert res.truth["coordinate_scale"] == 0.01
+
+
+def test_truth_counts_junction_evidence(tmp_path, small_scene):
+    """The truth's evidence table holds the plate-top returns of every 1-degree bin, and the step face and
+    the shell foot (within 10 mm of the junction) where they were hit."""
+    res = run_synth(small_scene, tmp_path)
+    ev = res.truth["junction_evidence"]
+    assert sum(ev["plate_top"]) == res.truth["label_counts"]["plate_top"]
+    assert sum(ev["step_face"]) == res.truth["label_counts"]["plate_edge"]
+    assert 0 < sum(ev["shell_foot"]) < res.truth["label_counts"]["shell"]
+    assert ev["fraction_1deg"] > 0.9

@@ -197,7 +197,7 @@ def test_scheduler_option_runs_on_an_existing_cluster(fleet, first_batch, schedu
 
 def test_local_cluster_from_the_cli_skips_then_force_redoes_with_the_same_bytes(fleet, first_batch, tmp_path):
     """--workers 2 starts (and closes) a local cluster: the done job is skipped (exit 0); --force runs it again and
-    its folder's files come out byte for byte the same (same input, same config)."""
+    its folder's files come out byte for byte the same (same input, same config), provenance.json aside."""
     from click.testing import CliRunner
 
     from chimeline.cli import cli
@@ -219,7 +219,39 @@ def test_local_cluster_from_the_cli_skips_then_force_redoes_with_the_same_bytes(
     after = {p.name: p.read_bytes() for p in folder.iterdir() if p.is_file()}
     assert sorted(before) == sorted(after)
     changed = [n for n in before if before[n] != after[n]]
-    assert set(changed) <= {"profile.json"}, changed  # its timings_s are the only wall-clock values
-    a, b = (json.loads(x["profile.json"]) for x in (before, after))
-    a.pop("timings_s"), b.pop("timings_s")
-    assert a == b
+    assert changed == ["provenance.json"], changed  # time, host and timings live there only
+    assert "manifest.json" in after
+
+
+def test_is_current_reads_the_folders_manifest(fleet, first_batch, tmp_path):
+    """Skipping rests on manifest.json: same kind, same input SHA-256, same resolved config hash, every listed file
+    present with its size; any difference redoes the job."""
+    import dataclasses
+    import shutil
+
+    from chimeline.config import load_config
+    from chimeline.io.batch_manifest import read_batch_manifest
+    from chimeline.workflows.batch import is_current
+
+    manifest, _, _, _ = fleet
+    out = first_batch[3]
+    job = read_batch_manifest(manifest).jobs[1]
+    src = out / job.tag / job.survey_date
+    folder = tmp_path / "copy"
+    shutil.copytree(src, folder)
+
+    def resolved(j):
+        return load_config(j.config, j.config_sets())[1]
+
+    assert is_current(folder, job, resolved(job))
+    other = dataclasses.replace(job, sets=job.sets + (("profile.bin_width_deg", 2.0),))
+    assert not is_current(folder, other, resolved(other))  # another config
+    assert not is_current(folder, dataclasses.replace(job, kind="evaluate"), resolved(job))  # another kind
+    scan = tmp_path / "scan.las"
+    scan.write_bytes(job.scan.read_bytes()[:-1] + b"\x01")  # one byte changed
+    assert not is_current(folder, dataclasses.replace(job, scan=scan), resolved(job))
+    (folder / "report.html").write_text("")  # a listed file damaged (its size differs)
+    assert not is_current(folder, job, resolved(job))
+    (folder / "report.html").unlink()
+    assert not is_current(folder, job, resolved(job))
+    assert not is_current(tmp_path / "none", job, resolved(job))

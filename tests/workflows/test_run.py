@@ -1,12 +1,15 @@
 """chimeline run as a workflow: files written, reproducibility, flagged coverage, NaN handling."""
 import json
+import os
+import subprocess
+import sys
 
 import laspy
 import numpy as np
 import pytest
 import yaml
 
-from tests.helpers import assert_fails, invoke
+from tests.helpers import ROOT, assert_fails, invoke
 
 
 def test_run_writes_profile_and_resolved_config(tmp_path, small_scan):
@@ -19,8 +22,11 @@ def test_run_writes_profile_and_resolved_config(tmp_path, small_scan):
     assert rows[0].split(",")[:6] == ["azimuth_deg", "elevation_m", "std_error_m", "n_points", "n_rejected", "n_stations"]
     assert len(rows) == 1 + 180
     js = json.loads((out / "profile.json").read_text())
-    for key in ("units", "shell", "noise", "input", "config", "software", "counts", "timings_s"):
+    for key in ("units", "shell", "noise", "input", "config", "software", "counts"):
         assert key in js
+    assert "timings_s" not in js  # timings, time and host live in provenance.json only
+    prov = json.loads((out / "provenance.json").read_text())
+    assert prov["timings_s"]["total"] > 0 and prov["host"] and prov["created_utc"]
     assert js["shell"]["radius"] == pytest.approx(truth["tank"]["outer_radius"], abs=0.003)
     assert len(js["input"]["sha256"]) == 64
     assert "ci95" in js["noise"] and js["noise"]["ci95"][0] < js["noise"]["sigma"] < js["noise"]["ci95"][1]
@@ -60,17 +66,25 @@ def test_low_coverage_refused_or_flagged(tmp_path, simulate):
     assert any("min_coverage" in w for w in js["warnings"])
 
 
-def test_same_input_and_config_give_the_same_bytes(tmp_path, small_scan):
-    """Every machine output is identical on a second run (timings aside, which live in profile.json's timings_s)."""
+def test_same_input_and_config_give_the_same_bytes(tmp_path, small_scan, monkeypatch):
+    """The same scan and config three times: in a fresh process, then twice in this one (state left by earlier
+    figures once changed quicklook.png), the last from another working folder with a relative path. Every file is
+    byte-identical (CSV, JSON, YAML, PNG, report.html, manifest.json) except the declared provenance record."""
     scan, _ = small_scan
-    for name in ("a", "b"):
-        invoke(["-q", "run", scan, "--out", tmp_path / name, "--set", "tank.shell_height=6", "--set",
-                "tank.yield_strength=250 MPa"])
-    for f in ("profile.csv", "residuals.csv", "evaluation.json", "evaluation.csv", "fe_out_of_plane.csv",
-              "config.resolved.yaml", "plumbness.csv", "roundness.csv", "shell_deviation.csv"):
-        assert (tmp_path / "a" / f).read_bytes() == (tmp_path / "b" / f).read_bytes(), f
-    a, b = (json.loads((tmp_path / n / "profile.json").read_text()) for n in "ab")
-    for d in (a, b):
-        d.pop("timings_s")
-        d["input"].pop("path")
-    assert a == b
+    tank = ["--set", "tank.shell_height=6", "--set", "tank.yield_strength=250 MPa"]
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(ROOT / "pipeline"), os.environ.get("PYTHONPATH", "")]))
+    subprocess.run([sys.executable, "-m", "chimeline", "-q", "run", str(scan), "--out", str(tmp_path / "a")] + tank,
+                   check=True, env=env, capture_output=True)
+    invoke(["-q", "run", scan, "--out", tmp_path / "b"] + tank)
+    monkeypatch.chdir(scan.parent)
+    invoke(["-q", "run", scan.name, "--out", tmp_path / "c"] + tank)
+    files = sorted(p.relative_to(tmp_path / "a") for p in (tmp_path / "a").rglob("*") if p.is_file())
+    assert {"report.html", "manifest.json", "provenance.json", "evaluation.json", "plots/profile.png",
+            "quicklook.png", "plumbness.csv", "roundness.csv", "shell_deviation.csv"} <= {str(f) for f in files}
+    for other in ("b", "c"):
+        assert files == sorted(p.relative_to(tmp_path / other) for p in (tmp_path / other).rglob("*") if p.is_file())
+        differ = [str(f) for f in files if (tmp_path / "a" / f).read_bytes() != (tmp_path / other / f).read_bytes()]
+        assert differ == ["provenance.json"], other
+    manifest = json.loads((tmp_path / "a" / "manifest.json").read_text())
+    assert set(manifest["files"]) == {str(f) for f in files} - {"manifest.json", "provenance.json"}
+    assert manifest["inputs"][0]["path"] == str(scan) and manifest["kind"] == "run"

@@ -8,7 +8,7 @@ import click
 
 from ..core.lazy import lazy_import
 from ..notices import CAUTION
-from .common import out_option, reported
+from .common import OutFolder, Progress, reported
 
 batch_wf = lazy_import("chimeline.workflows.batch")
 
@@ -26,8 +26,9 @@ def _job_line(oc, n, total) -> str:
 
 @click.command()
 @click.argument("manifest", type=click.Path(path_type=Path))
-@out_option("Batch folder: one <tag>/<survey_date>/ folder per job, fleet.csv, fleet.json, index.html and "
-            "<tag>/history.json, history.csv.")
+@click.option("--out", "out_dir", required=True, type=OutFolder(replaced=False),
+              help="Batch folder (kept; its files are replaced one by one): one <tag>/<survey_date>/ folder per job, "
+                   "fleet.csv, fleet.json, index.html and <tag>/history.json, history.csv.")
 @click.option("--workers", type=click.IntRange(1, 1024), default=None,
               help="Worker processes of the local Dask cluster (default: one per core).")
 @click.option("--memory-limit", default="auto", show_default=True,
@@ -59,6 +60,7 @@ def batch(ctx, manifest, out_dir, workers, memory_limit, scheduler, retries, for
         from tqdm import tqdm
 
         bar = tqdm(total=0, unit="job", desc="batch", file=sys.stderr, leave=False)
+        Progress.showing = True  # log lines are written above the bar
 
     def on_job(oc, n, total):
         if bar is not None:
@@ -75,6 +77,7 @@ def batch(ctx, manifest, out_dir, workers, memory_limit, scheduler, retries, for
     finally:
         if bar is not None:
             bar.close()
+            Progress.showing = False
     counts = {s: sum(o.status == s for o in res.outcomes) for s in ("done", "skipped", "failed")}
     click.echo(f"batch: {len(res.outcomes)} jobs on {res.engine} in {res.seconds:.1f} s: {counts['done']} done, "
                f"{counts['skipped']} skipped, {counts['failed']} failed")

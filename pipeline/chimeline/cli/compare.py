@@ -8,7 +8,7 @@ import click
 from ..core.lazy import lazy_import
 from ..notices import CAUTION
 from ..report.console import p_text
-from .common import out_option, reported
+from .common import Number, out_option, reported
 
 compare_wf = lazy_import("chimeline.workflows.compare")
 
@@ -16,8 +16,9 @@ compare_wf = lazy_import("chimeline.workflows.compare")
 @click.command()
 @click.argument("run_dirs", nargs=-1, required=True, type=click.Path(path_type=Path))
 @out_option()
-@click.option("--alpha", type=float, default=0.05, show_default=True, help="Significance level of the tests.")
-@click.option("--margin", type=float, default=0.1, show_default=True,
+@click.option("--alpha", type=Number(1e-6, 0.5), default=0.05, show_default=True,
+              help="Significance level of the tests (1e-6 to 0.5).")
+@click.option("--margin", type=Number(1e-3, 10.0), default=0.1, show_default=True,
               help="Equivalence margin: noise levels within this share of each other 'do not differ'.")
 def compare(run_dirs, out_dir, alpha, margin):
     """QA: compare scanner setups (or survey dates) by noise and by profile.

@@ -8,7 +8,7 @@ import click
 from ..core.lazy import lazy_import
 from ..notices import CAUTION
 from ..report.console import verdict_lines
-from .common import config_option, out_option, reported, set_option, set_pairs
+from .common import Number, config_option, out_option, reported, set_option, set_pairs, warn
 
 evaluate_wf = lazy_import("chimeline.workflows.evaluate")
 
@@ -17,7 +17,8 @@ evaluate_wf = lazy_import("chimeline.workflows.evaluate")
 @click.argument("input_csv", type=click.Path(path_type=Path))
 @config_option("YAML config with the tank data (tank.*) and evaluate.* settings.")
 @set_option("Override a config key, e.g. tank.yield_strength='36 ksi' (repeatable).")
-@click.option("--decimate", type=int, default=None, help="Also evaluate an N-point survey sampled from a dense profile.")
+@click.option("--decimate", type=Number(4, 360, integer=True), default=None,
+              help="Also evaluate an N-point survey sampled from a dense profile (4-360).")
 @out_option()
 @click.option("--pdf", is_flag=True, help="Also print report.html to report.pdf (needs Chromium).")
 def evaluate(input_csv, config_path, sets, decimate, out_dir, pdf):
@@ -34,6 +35,8 @@ def evaluate(input_csv, config_path, sets, decimate, out_dir, pdf):
       fe_out_of_plane.csv               out-of-plane settlement for an FE model
       report.html, plots/*.png          the report; report.pdf with --pdf
       config.resolved.yaml              the exact config
+    OUT is an evaluation folder: a run folder is refused (write beside it, e.g.
+    RUN-evaluation).
     """
     pairs = set_pairs(sets)
     if pdf:
@@ -46,5 +49,5 @@ def evaluate(input_csv, config_path, sets, decimate, out_dir, pdf):
         click.echo(line)
     click.echo(f"wrote {out_dir}/evaluation.json, evaluation.csv, fe_out_of_plane.csv, report.html and plots/")
     for w in ev.warnings:
-        click.echo(f"warning: {w}", err=True)
+        warn(w)
     click.echo(f"Caution: {CAUTION}")

@@ -8,7 +8,7 @@ import click
 from ..core.lazy import lazy_import
 from ..notices import CAUTION
 from ..report.console import verdict_lines
-from .common import Progress, config_option, out_option, reported, set_option, set_pairs
+from .common import Progress, config_option, out_option, reported, set_option, set_pairs, warn
 
 run_wf = lazy_import("chimeline.workflows.run")
 
@@ -35,7 +35,8 @@ def run(ctx, scan, config_path, sets, out_dir, pdf):
       plumbness.csv, roundness.csv, shell_deviation.csv   the shell geometry
     With tank data in the config (tank.shell_height, tank.yield_strength) it also
     evaluates the settlement: evaluation.json, evaluation.csv, fe_out_of_plane.csv.
-    A failed run writes nothing.
+    OUT is replaced as a whole when the run succeeds; a failed or killed run
+    leaves the earlier one as it was.
     """
     pairs = set_pairs(sets)
     if pdf:
@@ -50,5 +51,5 @@ def run(ctx, scan, config_path, sets, out_dir, pdf):
         for line in verdict_lines(res.evaluation, res.out_units):
             click.echo(line)
     for w in res.warnings:
-        click.echo(f"warning: {w}", err=True)
+        warn(w)
     click.echo(f"Caution: {CAUTION}")

@@ -21,6 +21,7 @@ class Purpose(IntEnum):
     SYNTH_STATION = 1000  # + station index: a simulated station's parameters and registration error
     SYNTH_CHUNK = 2000  # + station index, then the chunk number: a simulated station's rays
     SYNTH_GROUND = 7777  # the simulated ground's roughness
+    SYNTH_MIXING = 3000  # + station index, then the chunk number: footprint mixing at the crease and the plate edge
 
 
 def stream(seed: int, purpose: Purpose, *index: int, offset: int = 0) -> np.random.Generator:

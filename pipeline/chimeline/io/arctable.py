@@ -11,8 +11,8 @@ from pathlib import Path
 from typing import Optional
 
 import numpy as np
-import yaml
 
+from ..config import parse_yaml, read_yaml_text
 from ..errors import ConfigError
 from ..units import to_metres
 
@@ -57,19 +57,18 @@ def load_arc_table(path=None) -> Optional[ArcTable]:
         if not p.is_file():
             raise ConfigError(f"evaluate.arc_table: {p}: {'is a folder, not a table file' if p.is_dir() else 'file not found'}"
                               f" (give a YAML table, or {DEMO_TABLE_KEY} for the packaged illustrative one)")
-        try:
-            text = p.read_text(encoding="utf-8")
-        except (OSError, UnicodeDecodeError) as exc:
-            raise ConfigError(f"evaluate.arc_table: {p}: cannot read ({exc})") from None
+        text = read_yaml_text(p, "arc table")
         src = str(p)
     try:
-        data = yaml.safe_load(text)
+        data = parse_yaml(text, src)
         unit = data.get("units", "m")
         f = to_metres(unit)
         curves = []
         for i, r in enumerate(data["curves"]):
             arc = np.asarray(r["arc_length"], dtype=float) * f
             dep = np.asarray(r["permissible_depth"], dtype=float) * f
+            if arc.ndim != 1 or not (np.all(np.isfinite(arc)) and np.all(np.isfinite(dep))):
+                raise ValueError(f"curves[{i}]: arc_length and permissible_depth must be lists of finite numbers")
             if arc.shape != dep.shape or len(arc) < 2 or np.any(np.diff(arc) <= 0):
                 raise ValueError(f"curves[{i}]: arc_length must increase and match permissible_depth")
             curves.append(ArcCurve(roof=r.get("roof", "any"), d_min=float(r.get("diameter_min", 0)) * f,
@@ -77,6 +76,7 @@ def load_arc_table(path=None) -> Optional[ArcTable]:
     except ConfigError:
         raise
     except Exception as exc:
-        raise ConfigError(f"{src}: not a valid permissible settlement table ({exc})") from None
+        raise ConfigError(f"{src}: not a valid permissible settlement table ({type(exc).__name__}: "
+                          f"{str(exc)[:120]})") from None
     return ArcTable(illustrative=bool(data.get("illustrative", False)), title=data.get("title", ""), source=src,
                     curves=tuple(curves))

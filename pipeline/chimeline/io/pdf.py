@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import os
+import re
 import shutil
 import subprocess
 import tempfile
@@ -46,3 +47,15 @@ def html_to_pdf(html_path, pdf_path, timeout: float = 180.0) -> None:
         tail = (r.stderr or b"").decode(errors="replace").strip().splitlines()
         raise OutputError(f"{pdf_path}: Chromium could not print the report (exit {r.returncode}"
                           f"{': ' + tail[-1][:160] if tail else ''})")
+
+
+def pdf_bytes(html: str, timeout: float = 180.0) -> bytes:
+    """report.pdf for the report's HTML text, printed in a temporary folder (the output folder is written whole
+    by ``io.atomic.OutputSlot``). The creation and modification dates Chromium stamps are zeroed (same length,
+    so the cross-reference offsets hold): the same report gives the same PDF; the time is in provenance.json."""
+    with tempfile.TemporaryDirectory(prefix="chimeline-pdf-") as tmp:
+        page = Path(tmp) / "report.html"
+        page.write_text(html, encoding="utf-8")
+        html_to_pdf(page, Path(tmp) / "report.pdf", timeout)
+        raw = (Path(tmp) / "report.pdf").read_bytes()
+    return re.sub(rb"/(CreationDate|ModDate) ?\(D:[0-9]+", lambda m: re.sub(rb"[0-9]", b"0", m.group(0)), raw)

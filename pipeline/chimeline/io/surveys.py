@@ -18,7 +18,7 @@ from typing import Optional
 import numpy as np
 from scipy.optimize import least_squares
 
-from ..errors import ConfigError, InputError
+from ..errors import ConfigError, InputError, clip_repr
 from ..units import to_metres
 from .runfiles import PROFILE_JSON, read_summary, split_unit
 
@@ -38,6 +38,13 @@ class SurveyData:
     n_dropped: int = 0  # bins without value (gaps) not used
 
 
+#: largest magnitude of a survey number (elevations, coordinates in file units): beyond it the arithmetic of the
+#: evaluation overflows, and no tank survey comes near it
+MAX_VALUE = 1e9
+#: largest survey or profile CSV read (a 0.05 degree profile is under 1 MiB)
+MAX_BYTES = 64 << 20
+
+
 def _float(v, path, row, col, allow_empty=False):
     v = (v or "").strip()
     if v == "" and allow_empty:
@@ -45,22 +52,40 @@ def _float(v, path, row, col, allow_empty=False):
     try:
         x = float(v)
     except ValueError:
-        raise InputError(f"{path}: row {row}: '{col}' is not a number: {v!r}") from None
+        raise InputError(f"{path}: row {row}: '{col}' is not a number: {clip_repr(v, 50)}") from None
+    if math.isfinite(x) and abs(x) > MAX_VALUE:
+        raise InputError(f"{path}: row {row}: '{col}' = {clip_repr(v, 30)} is beyond +-{MAX_VALUE:g}; check the unit "
+                         f"and the column")
     return x
+
+
+def _text(r, cols, name, path, row) -> str:
+    """A text cell; a row too short to have it is refused."""
+    v = r.get(cols[name])
+    if v is None:
+        raise InputError(f"{path}: row {row}: no '{name}' cell (the row has fewer cells than the header)")
+    return v.strip()
 
 
 def read_survey(path, cfg) -> SurveyData:
     path = Path(path)
     if not path.exists():
         raise InputError(f"{path}: input file not found")
+    if not path.is_file():
+        raise InputError(f"{path}: is a folder, not a survey or profile CSV")
+    if path.stat().st_size > MAX_BYTES:
+        raise InputError(f"{path}: larger than {MAX_BYTES >> 20} MiB; not a survey or profile CSV")
     try:
         text = path.read_text(encoding="utf-8-sig")
     except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: cannot read: {exc}") from None
+        raise InputError(f"{path}: cannot read: {str(exc)[:120]}") from None
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     if not lines:
         raise InputError(f"{path}: the file is empty")
-    rows = list(csv.DictReader(lines))
+    try:
+        rows = list(csv.DictReader(lines))
+    except csv.Error as exc:
+        raise InputError(f"{path}: not a readable CSV table ({str(exc)[:100]})") from None
     if not rows:
         raise InputError(f"{path}: no data rows below the header")
     cols, header_units = {}, set()
@@ -85,7 +110,7 @@ def read_survey(path, cfg) -> SurveyData:
         for i, r in enumerate(rows, start=2):
             a = _float(r[cols["azimuth_deg"]], path, i, "azimuth_deg")
             e = _float(r[cols["elevation"]], path, i, "elevation", allow_empty=dense)
-            st = r[cols["status"]].strip() if dense else "ok"
+            st = _text(r, cols, "status", path, i) if dense else "ok"
             if dense and (st != "ok" or not math.isfinite(e)):
                 dropped += 1
                 continue
@@ -95,7 +120,7 @@ def read_survey(path, cfg) -> SurveyData:
                 raise InputError(f"{path}: row {i}: azimuth_deg {a} is outside [0, 360)")
             az.append(a)
             z.append(e * f)
-            label.append(r[cols["label"]].strip() if "label" in cols else str(i - 1))
+            label.append(_text(r, cols, "label", path, i) if "label" in cols else str(i - 1))
             if "std_error" in cols:
                 s = _float(r[cols["std_error"]], path, i, "std_error", allow_empty=True)
                 if math.isfinite(s) and s <= 0:
@@ -109,7 +134,7 @@ def read_survey(path, cfg) -> SurveyData:
                 raise InputError(f"{path}: row {i}: NaN or infinite coordinate")
             xy.append((x * f, y * f))
             z.append(e * f)
-            label.append(r[cols["label"]].strip() if "label" in cols else str(i - 1))
+            label.append(_text(r, cols, "label", path, i) if "label" in cols else str(i - 1))
         xy = np.array(xy)
         c = np.asarray(cfg.survey_center, dtype=float) * f if cfg.survey_center is not None else _fit_circle(xy, path)
         az = list(np.mod(np.degrees(np.arctan2(xy[:, 0] - c[0], xy[:, 1] - c[1])), 360.0))
@@ -121,11 +146,11 @@ def read_survey(path, cfg) -> SurveyData:
             e = _float(r[cols["elevation"]], path, i, "elevation")
             if not math.isfinite(e):
                 raise InputError(f"{path}: row {i}: elevation is NaN or infinite")
-            if p != int(p) or p < 1:
+            if not math.isfinite(p) or p != int(p) or p < 1 or p > 100_000:
                 raise InputError(f"{path}: row {i}: point must be a whole number >= 1, got {p}")
             pts.append(int(p))
             z.append(e * f)
-            label.append(r[cols["label"]].strip() if "label" in cols else str(int(p)))
+            label.append(_text(r, cols, "label", path, i) if "label" in cols else str(int(p)))
         n = cfg.survey_points or max(pts)
         if max(pts) > n:
             raise InputError(f"{path}: point {max(pts)} is beyond evaluate.survey_points = {n}")
@@ -165,8 +190,10 @@ def _units(path: Path, cfg, header_unit=None):
     if side.exists():
         js = read_summary(side)
         side_units = js["units"]
-        n = (js.get("noise") or {}).get("sigma")
-        noise = float(n) * to_metres(side_units) if isinstance(n, (int, float)) else None
+        n = js.get("noise")
+        n = n.get("sigma") if isinstance(n, dict) else None
+        ok = isinstance(n, (int, float)) and not isinstance(n, bool) and math.isfinite(n) and n > 0
+        noise = float(n) * to_metres(side_units) if ok else None
     if header_unit is not None:
         if cfg.input_units != "auto" and cfg.input_units != header_unit:
             raise ConfigError(f"evaluate.input_units is {cfg.input_units!r} but the columns of {path} are in "
@@ -188,10 +215,21 @@ def _fit_circle(xy, path):
     """Least-squares circle (algebraic fit, then geometric refinement) through survey points."""
     if len(xy) < 3:
         raise InputError(f"{path}: at least 3 points are needed to fit the tank centre")
-    A = np.column_stack([2 * xy, np.ones(len(xy))])
-    b = (xy ** 2).sum(axis=1)
+    m = xy.mean(axis=0)
+    d = xy - m
+    span = float(np.abs(d).max())
+    sv = np.linalg.svd(d / max(span, 1e-300), compute_uv=False)
+    if span == 0 or sv[-1] < 1e-6 * sv[0]:
+        raise InputError(f"{path}: the x,y points lie on a line (or on one spot): no tank centre can be fitted; set "
+                         f"evaluate.survey_center")
+    A = np.column_stack([2 * d, np.ones(len(d))])
+    b = (d ** 2).sum(axis=1)
     sol, *_ = np.linalg.lstsq(A, b, rcond=None)
     c0 = sol[:2]
     r0 = math.sqrt(max(sol[2] + c0 @ c0, 1e-12))
-    res = least_squares(lambda p: np.hypot(xy[:, 0] - p[0], xy[:, 1] - p[1]) - p[2], [c0[0], c0[1], r0])
-    return res.x[:2]
+    res = least_squares(lambda p: np.hypot(d[:, 0] - p[0], d[:, 1] - p[1]) - p[2], [c0[0], c0[1], r0])
+    chord = float(np.hypot(*(d.max(axis=0) - d.min(axis=0))))
+    if not np.all(np.isfinite(res.x)) or abs(res.x[2]) > 10 * chord:
+        raise InputError(f"{path}: the x,y points lie on a nearly straight arc (fitted radius {abs(res.x[2]):.4g} "
+                         f"against a spread of {chord:.4g}): no tank centre can be fitted; set evaluate.survey_center")
+    return res.x[:2] + m

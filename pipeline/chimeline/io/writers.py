@@ -32,8 +32,14 @@ def local_cs_wkt(units: str) -> str:
 class ScanWriter:
     """Open with a final path; ``write(xyz_m, intensity, source_id, gps_time)``; ``close()`` renames into place."""
 
-    def __init__(self, path, fmt: str, units: str, offset, date: datetime.date, software: str):
+    def __init__(self, path, fmt: str, units: str, offset, date: datetime.date, software: str, *,
+                 station_ids: bool = True, scale: float = 1e-4):
+        """``station_ids`` false writes a merged cloud (point source id 0; no station column); ``scale`` is the
+        coordinate resolution in file units (LAS scale factor; ASCII writes the decimals it implies)."""
         self.path = Path(path)
+        self.station_ids = station_ids
+        self.scale = float(scale)
+        self.decimals = max(0, int(np.ceil(-np.log10(self.scale) - 1e-9)))
         self.fmt = fmt
         self.units = units
         self.factor = to_metres(units)
@@ -48,7 +54,7 @@ class ScanWriter:
 
             version, pf = ("1.2", 1) if fmt == "las12" else ("1.4", 6)
             hdr = laspy.LasHeader(point_format=pf, version=version)
-            hdr.scales = np.array([1e-4, 1e-4, 1e-4])
+            hdr.scales = np.array([self.scale] * 3)
             hdr.offsets = np.round(self.offset, 0)
             hdr.creation_date = date
             hdr.generating_software = software[:32]
@@ -65,7 +71,7 @@ class ScanWriter:
             self._fh = open(self.tmp.with_suffix(".body"), "wb")
         elif fmt == "xyz":
             self._fh = open(self.tmp, "w", encoding="ascii")
-            self._fh.write("# x y z intensity station\n")
+            self._fh.write("# x y z intensity station\n" if station_ids else "# x y z intensity\n")
 
     def file_xyz(self, xyz_m):
         return xyz_m / self.factor + self.offset
@@ -76,6 +82,8 @@ class ScanWriter:
             return
         xyz = self.file_xyz(xyz_m)
         self.count += n
+        if not self.station_ids:
+            source_id = np.zeros(n, np.uint16)
         if self.fmt in ("las14", "las12", "laz"):
             import laspy
 
@@ -88,15 +96,25 @@ class ScanWriter:
             rec.gps_time = gps_time
             self._las.write_points(rec)
         elif self.fmt == "ply":
-            rec = np.empty(n, dtype=[("x", "<f8"), ("y", "<f8"), ("z", "<f8"), ("intensity", "<u2"), ("station", "<u2")])
+            rec = np.empty(n, dtype=self._ply_dtype())
             rec["x"], rec["y"], rec["z"] = xyz[:, 0], xyz[:, 1], xyz[:, 2]
-            rec["intensity"], rec["station"] = intensity, source_id
+            rec["intensity"] = intensity
+            if self.station_ids:
+                rec["station"] = source_id
             self._fh.write(rec.tobytes())
         elif self.fmt == "xyz":
-            arr = np.column_stack([xyz, intensity, source_id])
-            np.savetxt(self._fh, arr, fmt=["%.4f", "%.4f", "%.4f", "%d", "%d"])
+            f = f"%.{self.decimals}f"
+            if self.station_ids:
+                np.savetxt(self._fh, np.column_stack([xyz, intensity, source_id]), fmt=[f, f, f, "%d", "%d"])
+            else:
+                np.savetxt(self._fh, np.column_stack([xyz, intensity]), fmt=[f, f, f, "%d"])
         else:
-            self._buf.append(np.column_stack([xyz, intensity, source_id]).astype(np.float64))
+            cols = [xyz, intensity, source_id] if self.station_ids else [xyz, intensity]
+            self._buf.append(np.column_stack(cols).astype(np.float64))
+
+    def _ply_dtype(self):
+        fields = [("x", "<f8"), ("y", "<f8"), ("z", "<f8"), ("intensity", "<u2")]
+        return fields + ([("station", "<u2")] if self.station_ids else [])
 
     def close(self):
         if self.fmt in ("las14", "las12", "laz"):
@@ -106,7 +124,8 @@ class ScanWriter:
             body = self.tmp.with_suffix(".body")
             header = ("ply\nformat binary_little_endian 1.0\ncomment chimeline synthetic scan, units "
                       f"{self.units}\nelement vertex {self.count}\nproperty double x\nproperty double y\n"
-                      "property double z\nproperty ushort intensity\nproperty ushort station\nend_header\n")
+                      "property double z\nproperty ushort intensity\n"
+                      + ("property ushort station\n" if self.station_ids else "") + "end_header\n")
             with open(self.tmp, "wb") as out, open(body, "rb") as src:
                 out.write(header.encode("ascii"))
                 shutil.copyfileobj(src, out, 16 << 20)
@@ -114,7 +133,7 @@ class ScanWriter:
         elif self.fmt == "xyz":
             self._fh.close()
         else:
-            arr = np.concatenate(self._buf) if self._buf else np.zeros((0, 5))
+            arr = np.concatenate(self._buf) if self._buf else np.zeros((0, 5 if self.station_ids else 4))
             with open(self.tmp, "wb") as fh:
                 np.save(fh, arr)
         os.replace(self.tmp, self.path)

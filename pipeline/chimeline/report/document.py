@@ -219,9 +219,26 @@ def _measurement(res, fm) -> list:
         else:
             words = f"the two estimators agree (F test {p_text(n.agreement_p)})"
         rows.append(("second estimator (neighbour pairs)", f"{fm.small_len(n.pairs.sigma, 2)}; ratio {ratio:.3f}: {words}"))
-    rows.append(("station vertical offsets (registration), spread",
-                 f"{fm.small_len(n.registration_sigma, 2)} ({'removed from the profile' if p.leveled else 'reported only'});"
-                 f" datum 1 sigma {fm.small_len(n.datum_sigma, 2)}"))
+    if getattr(n, "station_ids", True):
+        rows.append(("station vertical offsets (registration), spread",
+                     f"{fm.small_len(n.registration_sigma, 2)} ({'removed from the profile' if p.leveled else 'reported only'});"
+                     f" datum 1 sigma {fm.small_len(n.datum_sigma, 2)}"))
+    else:
+        rows.append(("station levelling", "NOT POSSIBLE: the scan carries no station ids. The correlated (registration) "
+                     f"error estimated from the data, {fm.small_len(n.correlated_sigma, 2)}, is in every standard error"))
+    if np.isfinite(getattr(n, "contamination", np.nan)) and n.contamination > 1.0:
+        rows.append(("mixed pixels", f"plain within-bin scatter {fm.small_len(n.classical_sigma, 2)}, "
+                     f"{100 * (n.contamination - 1):.0f} % above the robust noise estimate"))
+    if getattr(n, "quantum", 0) > 0:
+        rows.append(("file vertical resolution", f"{fm.small_len(n.quantum, 2)}; rounding error of a bin mean that "
+                     f"averaging cannot remove {fm.small_len(n.quantization_bias_sigma, 2)}"))
+    fu = getattr(p, "fusion", None)
+    if fu is not None:
+        kinds = "; ".join(f"{k.kind}: offset to the top {fm.small_len(k.offset, 2)}, scatter {fm.small_len(k.sigma, 2)}"
+                          for k in fu.kinds) or "top only"
+        counts = ", ".join(f"{k} {v}" for k, v in fu.counts.items())
+        rows.append(("junction evidence per bin", f"{counts} ({kinds}); {fu.n_widened} bins widened (up to "
+                     f"{fu.max_width_deg:.3g} deg); ok = standard error at most {fm.small_len(fu.max_std_error, 2)}"))
     ok = int((p.status == "ok").sum())
     rows.append(("coverage of the circumference (ok bins)",
                  f"{100 * p.coverage:.1f} % ({ok} of {len(p.azimuth_deg)} bins of {p.bin_width_deg:.3g} deg)"))

@@ -124,7 +124,8 @@ def history_json(h) -> str:
             d.update(_change_dict(iv.change))
         if iv.extrapolation is not None:
             d["extrapolation"] = _extrapolation_dict(iv.extrapolation)
-            d["extrapolation"]["arc_table_illustrative"] = bool(h.surveys and h.surveys[-1].illustrative)
+            d["extrapolation"]["arc_table_illustrative"] = bool(h.surveys and h.surveys[-1].illustrative
+                                                                and "B.3.2.2" in iv.extrapolation.check)
         out["intervals"].append(d)
     out["extrapolation_note"] = h.extrapolation_note
     return json_text(out)

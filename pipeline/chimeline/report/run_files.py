@@ -30,7 +30,8 @@ def profile_table(res) -> ProfileTable:
     p = res.profile
     return ProfileTable(azimuth_deg=p.azimuth_deg, elevation=L.elevation(p.elevation), std_error=L.length(p.std_error),
                         n_points=p.n_points, n_rejected=p.n_rejected, n_stations=p.n_stations, n_eff=p.n_eff,
-                        scale=L.length(p.scale), status=p.status, units=L.unit)
+                        scale=L.length(p.scale), status=p.status, units=L.unit, evidence=p.evidence,
+                        width_deg=p.width_deg)
 
 
 def _estimate(e, L):
@@ -71,11 +72,17 @@ def profile_summary(res) -> dict:
                                        "n_inliers": o.n_inliers, "coverage": _num(o.coverage, 3)} for o in s.others]},
         "junction": {"projection_width": _num(L.length(j.projection_width)) if j.projection_width else None,
                      "radial_window": [_num(L.length(v)) for v in j.radial_window],
-                     "method": "top of the bottom-plate projection next to the shell face: radial window, "
-                               "per-sector height mode prior, height gate"},
+                     "edge_smear": _num(L.length(j.edge_smear)) if j.edge_smear else None,
+                     "foot_returns": len(j.foot.z) if j.foot is not None else 0,
+                     "step_face_returns": len(j.step.z) if j.step is not None else 0,
+                     "method": "top of the bottom-plate projection next to the shell face: radial window (outer "
+                               "edge from the step face's pile of returns or a fit of the plate-level share with "
+                               "its noise), per-sector height mode prior, height gate; also the shell foot and "
+                               "the step face's top edge"},
         "profile": {"n_bins": len(p.azimuth_deg), "bin_width_deg": _num(p.bin_width_deg, 6),
                     "coverage_ok": _num(p.coverage, 4), "status_counts": status_counts,
-                    "gaps_deg": [[_num(a, 4), _num(b, 4)] for a, b in p.gaps]},
+                    "gaps_deg": [[_num(a, 4), _num(b, 4)] for a, b in p.gaps],
+                    **_evidence_summary(p, L)},
         "noise": {"sigma": _num(L.length(n.sigma), 7), "ci95" if abs(n.confidence - 0.95) < 1e-9 else "ci":
                   [_num(L.length(n.ci[0]), 7), _num(L.length(n.ci[1]), 7)], "confidence": n.confidence,
                   "method": n.method, "within_bin": _estimate(n.within_bin, L), "pairs": _estimate(n.pairs, L),
@@ -84,17 +91,51 @@ def profile_summary(res) -> dict:
                   "registration_residual_sigma": _num(L.length(n.registration_residual_sigma), 7),
                   "datum_sigma": _num(L.length(n.datum_sigma), 7),
                   "stations_leveled": bool(res.profile.leveled),
+                  "station_leveling": _leveling_text(res),
+                  "adopted_estimator": n.adopted, "pairs_source": n.pairs_source, "interior_only": n.interior,
+                  "classical_sigma": _num(L.length(n.classical_sigma), 7),
+                  "contamination_ratio": _num(n.contamination, 4),
+                  "correlated_sigma": _num(L.length(n.correlated_sigma), 7),
+                  "quantization": {"resolution": _num(L.length(n.quantum), 9),
+                                   "bias_sigma": _num(L.length(n.quantization_bias_sigma), 7)},
                   "stations": [{"station": st.station, "within_bin": _estimate(st.within_bin, L),
                                 "pairs": _estimate(st.pairs, L), "vertical_offset": _num(L.length(st.offset), 7),
                                 "vertical_offset_se": _num(L.length(st.offset_se), 7)} for st in n.stations]},
         "counts": res.counts,
-        "timings_s": {k: round(v, 3) for k, v in res.timings.items()},
         "warnings": list(res.warnings),
         "vertical_reference": VERTICAL_REFERENCE,
         "geometry": (geometry_summary(res.geometry, L, res.config.geometry.vertical_reference_sigma)
                      if res.geometry is not None else None),
         "caution": CAUTION,
     }
+
+
+def _leveling_text(res) -> str:
+    n, p = res.noise, res.profile
+    if not n.station_ids:
+        return ("not possible: the scan carries no station ids; the correlated (registration) error estimated from "
+                "the data is in every standard error (correlated_sigma)")
+    if p.leveled:
+        return "relative station vertical offsets estimated from shared bins and removed"
+    return "station offsets reported, not removed" if len(p.station_offset) else "one station: nothing to level"
+
+
+def _evidence_summary(p, L) -> dict:
+    """profile.json keys on the evidence joined per bin (per-bin lists follow the bins of profile.csv)."""
+    f = p.fusion
+    if f is None:
+        return {}
+    return {"max_std_error": _num(L.length(f.max_std_error), 7), "max_bin_width_deg": _num(f.max_width_deg, 6),
+            "bins_widened": f.n_widened, "evidence_counts": {str(k): int(v) for k, v in f.counts.items()},
+            "evidence_kinds": [{"kind": k.kind, "offset_to_top": _num(L.length(k.offset), 7),
+                                "sigma": _num(L.length(k.sigma), 7), "bins_with_top": k.n_pairs, "bins": k.n_bins}
+                               for k in f.kinds],
+            "kind_conflicts": f.n_conflicts, "top_roughness": _num(f.roughness, 4),
+            "evidence": [str(e) for e in p.evidence], "width_deg": [_num(w, 6) for w in p.width_deg],
+            "evidence_method": "per bin, projection-top mean, shell-foot lower edge and step-face upper edge, tied "
+                               "to the top by measured offsets and joined by inverse variance; status ok when the "
+                               "standard error is at most max_std_error, widening a thin bin up to "
+                               "max_bin_width_deg (never across a gap)"}
 
 
 def residual_table(res) -> ResidualTable:

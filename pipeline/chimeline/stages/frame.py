@@ -179,7 +179,7 @@ QUANTUM_WARN_SHARE = 0.25
 FLOAT32_WARN_M = 1e-4
 
 
-def precision_warnings(quantum, storage: str, frame: Frame, noise_sigma: float) -> list[str]:
+def precision_warnings(quantum, storage: str, frame: Frame, noise_sigma: float, storage_step: bool = True) -> list[str]:
     """One warning each for coarse 32-bit float coordinates (large offsets) and for a storage step (LAS scale)
     that is coarse against the measured noise. ``quantum`` (3,) file units or None; sigma in m."""
     out = []
@@ -190,6 +190,8 @@ def precision_warnings(quantum, storage: str, frame: Frame, noise_sigma: float) 
     if storage == "float32" and q_max > FLOAT32_WARN_M:
         out.append(f"coordinates are 32-bit floats with large values: they are stored in steps of up to "
                    f"{q_max * 1e3:.3g} mm; shift the scan to a local origin (or store doubles) before export")
+    if not storage_step:  # the noise stage words the storage step itself (it is in its variance model)
+        return out
     q_up = float(q_m[2 if frame.up_axis == "z" else 1])
     if np.isfinite(noise_sigma) and noise_sigma > 0 and q_up / np.sqrt(12.0) > QUANTUM_WARN_SHARE * noise_sigma:
         out.append(f"the file stores heights in steps of {q_up * 1e3:.3g} mm, coarse against the measured noise "

@@ -24,6 +24,7 @@ from dataclasses import dataclass
 from typing import Optional
 
 import numpy as np
+from scipy import optimize, stats
 from scipy.ndimage import median_filter
 
 from ..config import JunctionConfig
@@ -34,6 +35,25 @@ from ..errors import StageError
 from .shell import ShellFit
 
 log = logging.getLogger(__name__)
+
+
+#: m relative to the junction prior: the window searched for the shell foot's lower edge, and for the upper
+#: edge of the projection's step face
+FOOT_WINDOW = (-0.02, 0.04)
+STEP_WINDOW = (-0.025, 0.008)
+
+
+@dataclass(frozen=True)
+class EdgeEvidence:
+    """Returns whose edge in height marks the junction elevation: the shell foot (lower edge of the shell
+    face's returns) or the projection's step face (upper edge of its returns)."""
+
+    azimuth_deg: np.ndarray  # (m,)
+    z: np.ndarray  # (m,) m, local elevation (step face: moved to the shell face along the tilt plane)
+    z_rel: np.ndarray  # (m,) m, z minus the junction prior at the point's azimuth
+    station: np.ndarray  # (m,) int
+    window: tuple  # (lo, hi) m: z_rel range searched
+    edge: str  # "lower" (foot) or "upper" (step face)
 
 
 @dataclass(frozen=True)
@@ -52,6 +72,9 @@ class Junction:
     n_candidates: int  # in the radial window and the search window
     n_gated: int  # within the height gate of the prior (returned)
     base_z: float  # m, median shell foot elevation
+    foot: Optional[EdgeEvidence] = None  # shell-face returns near the foot
+    step: Optional[EdgeEvidence] = None  # returns on and around the projection's step face
+    edge_smear: Optional[float] = None  # m, radial smear of the projection's outer edge (fitted with the width)
 
 
 def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, frame, cfg: JunctionConfig) -> Junction:
@@ -77,13 +100,18 @@ def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
     foot = fill_circular(foot)
     foot_at = interp_sectors(az, foot, sec_w)
     near = np.abs(z - foot_at) < cfg.search_window
-    # projection width from the radial height profile
-    width = _projection_width(d, z - foot_at, near, cfg)
+    # clear of the shell face's own noise (4 sigma), but never more than a third of the largest projection
+    rmin = max(cfg.radial_min, min(4.0 * wall_scale, cfg.radial_max_limit / 3))
+    # projection width from the radial profile of plate-level returns, fitted with its noise
+    level = fill_circular(_plate_level(z, d, near, slices, rmin, foot))
+    width, edge_smear = _projection_width(d, z - interp_sectors(az, level, sec_w), near, rmin, cfg)
     if cfg.radial_max == "auto":
-        rmax = (width - cfg.radial_margin) if width is not None else 0.045
+        # stop short of the edge by the margin, or by the radial noise of returns seen head-on like the step
+        # face (2.5 x the shell face's scale), or half the edge's fitted smear: what still crosses in lies below
+        # the plate and is gated or rejected
+        rmax = (width - max(cfg.radial_margin, 2.5 * wall_scale, 0.5 * edge_smear)) if width is not None else 0.045
     else:
         rmax = float(cfg.radial_max)
-    rmin = max(cfg.radial_min, 4.0 * wall_scale)  # clear of the shell face's own noise
     rmax = max(rmax, rmin + 0.004)
     cand = near & (d >= rmin) & (d <= rmax)
     n_cand = int(cand.sum())
@@ -97,6 +125,11 @@ def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
             prior[k] = _mode(zz, 0.002)
     prior_raw = prior.copy()
     ok = np.isfinite(prior)
+    both = ok & np.isfinite(foot)
+    if both.sum() >= 3 and (~ok).any():
+        # sectors without enough projection-top returns: the shell foot, moved by its median offset to the top
+        prior = np.where(ok, prior, foot + float(np.median(prior[both] - foot[both])))
+        ok = np.isfinite(prior)
     if ok.sum() >= 3:
         filled = fill_circular(prior)
         smooth = median_filter(filled, size=3, mode="wrap")
@@ -108,13 +141,30 @@ def extract_junction(pts: np.ndarray, station: np.ndarray, shell: ShellFit, fram
     # move each point to the shell face along the tilt plane: the plate tilts with the tank, so across a
     # 50 mm projection a 1:500 tilt is 0.1 mm, which is systematic by azimuth
     zc = _to_face(z, az, d, gated, shell.radius, frame)
-    log.debug("junction: %d ring points, %d candidates, %d within the gate; projection width %s",
-             len(pts), n_cand, int(gated.sum()), f"{width * 1000:.0f} mm" if width else "not found")
+    # the other evidence of the junction's elevation: the lowest shell-face returns (the foot) and the top
+    # edge of the projection's step face; the profile stage fits their edges per bin
+    foot_ev = _edge_evidence(face & (z > prior_at + FOOT_WINDOW[0]) & (z < prior_at + FOOT_WINDOW[1]),
+                             az, z, prior_at, station, FOOT_WINDOW, "lower")
+    step_ev = None
+    if width is not None:
+        half = float(np.clip(edge_smear, 0.006, 0.015))
+        step_sel = (np.abs(d - width) < half) & (z > prior_at + STEP_WINDOW[0]) & (z < prior_at + STEP_WINDOW[1])
+        step_ev = _edge_evidence(step_sel, az, zc, prior_at, station, STEP_WINDOW, "upper")
+    log.debug("junction: %d ring points, %d candidates, %d within the gate; projection width %s; %d foot and %d "
+             "step-face returns", len(pts), n_cand, int(gated.sum()),
+             f"{width * 1000:.0f} mm" if width else "not found", len(foot_ev.z),
+             len(step_ev.z) if step_ev is not None else 0)
     centres = (np.arange(n_sec) + 0.5) * sec_w
     return Junction(azimuth_deg=az[gated], z=zc[gated], station=station[gated], radial=d[gated],
                     prior_sector_deg=centres, prior_z=np.where(np.isfinite(prior_raw), prior, np.nan),
                     projection_width=width, radial_window=(rmin, rmax), n_ring=len(pts),
-                    n_candidates=n_cand, n_gated=int(gated.sum()), base_z=base_z)
+                    n_candidates=n_cand, n_gated=int(gated.sum()), base_z=base_z, foot=foot_ev, step=step_ev,
+                    edge_smear=edge_smear)
+
+
+def _edge_evidence(sel, az, z, prior_at, station, window, edge) -> "EdgeEvidence":
+    zr = z[sel] - prior_at[sel]
+    return EdgeEvidence(azimuth_deg=az[sel], z=z[sel], z_rel=zr, station=station[sel], window=window, edge=edge)
 
 
 
@@ -168,31 +218,103 @@ def _mode(z, step):
     return float(np.median(z[sel]))
 
 
-def _projection_width(d, dz, near, cfg):
-    """Outer edge of the plate: first 5 mm radial slice whose median height drops below the plate level."""
-    step = 0.005
-    edges = np.arange(0.0, cfg.radial_max_limit + step, step)
-    sel = near & (d >= 0) & (d < edges[-1])
+def _plate_level(z, d, near, slices, rmin, fallback):
+    """Per sector: the plate top's height, the mode of the near points just outside the face (nan where none)."""
+    inner = near & (d >= rmin) & (d <= rmin + 0.02)
+    level = np.full(len(slices), np.nan)
+    for k, idx in enumerate(slices):
+        zz = z[idx][inner[idx]]
+        if len(zz) >= 3:
+            level[k] = _mode(zz, 0.002)
+    return np.where(np.isfinite(level), level, fallback)
+
+
+def _projection_width(d, dz, near, rmin, cfg):
+    """Outer edge of the plate (W, m) and its radial smear (s, m) from the radial profile of the returns near
+    the plate level; (None, None) if no edge is found.
+
+    1. The step face: the projection's outer face is seen head-on while its top is seen at grazing incidence,
+       so its returns pile up at one radius (W) with heights from the plate top down by the plate thickness. The
+       densest 3 mm radial slice of the returns within 8 mm below to 4 mm above the plate level, beyond
+       ``rmin`` + 10 mm, is the face when it holds at least ``STEP_PEAK`` times the median slice density
+       between ``rmin`` and it; W is the density-weighted centre of the slices above half the peak around it.
+    2. Otherwise the plate-level share: returns within ``g`` = 3 robust sigma of the plate level (2.5-6 mm)
+       are the plate top; beyond the edge the surface drops by the plate thickness or more. Their share in 2 mm
+       radial slices is fitted by binomial maximum likelihood with P(d) = A Phi((W - d) / s) + B (s the radial
+       smear of the edge by range noise at grazing incidence and mixed pixels, A the plate share inside, B the
+       background at plate level beyond).
+    """
+    limit = cfg.radial_max_limit
+    sel = near & (d >= rmin) & (d < limit)
+    if sel.sum() < 30:
+        return None, None
     dd, zz = d[sel], dz[sel]
-    k = (dd / step).astype(int)
-    med = np.full(len(edges) - 1, np.nan)
-    o = np.argsort(k, kind="stable")
-    b = np.searchsorted(k[o], np.arange(len(edges)))
-    for i in range(len(edges) - 1):
-        v = zz[o[b[i]:b[i + 1]]]
-        if len(v) >= 10:
-            med[i] = np.median(v)
-    if not np.isfinite(med[:4]).any():
+    peak = _step_face(dd, zz, rmin, limit)
+    if peak is not None:
+        return peak
+    core = (dd <= rmin + 0.02) & (np.abs(zz) < 0.01)
+    sv = MAD_TO_SIGMA * np.median(np.abs(zz[core])) if core.sum() >= 10 else 0.001
+    g = float(np.clip(3.0 * sv, 0.0025, 0.006))
+    on = np.abs(zz) < g
+    step = 0.002
+    k = ((dd - rmin) / step).astype(int)
+    nb = int(np.ceil((limit - rmin) / step))
+    n = np.bincount(k, minlength=nb)[:nb].astype(float)
+    y = np.bincount(k, weights=on.astype(float), minlength=nb)[:nb]
+    centre = rmin + (np.arange(nb) + 0.5) * step
+    if y.sum() < 10:
+        return None, None
+
+    def nll(p):
+        w, s, a, b = p
+        pr = np.clip(a * stats.norm.cdf((w - centre) / s) + b, 1e-9, 1 - 1e-9)
+        return -float((y * np.log(pr) + (n - y) * np.log(1 - pr)).sum())
+
+    best = None
+    bounds = [(rmin + step, limit), (0.0005, 0.04), (0.0, 1.0), (0.0, 1.0)]
+    for w0 in np.linspace(rmin + 0.01, limit - 0.005, 8):
+        r = optimize.minimize(nll, [w0, 0.004, 0.8, 0.05], method="L-BFGS-B", bounds=bounds)
+        if best is None or r.fun < best.fun:
+            best = r
+    w, s, a, b = best.x
+    # an edge needs a real drop of the plate-level share, inside the searched range
+    if a < 0.3 or a + b > 1.0 + 1e-6 or w >= limit - step:
+        return None, None
+    return float(w), float(s)
+
+
+STEP_PEAK = 3.0  # density of the step face's slice over the median slice inside it
+#: m about the plate level: the step face's upper part (plates are 6-14 mm thick); a berm sloping away below the
+#: edge or a ringwall top a plate thickness down lies mostly outside it
+STEP_BAND = (-0.008, 0.004)
+
+
+def _step_face(dd, zz, rmin, limit, step=0.003):
+    """(W, half width) of the step face's pile of returns, or None (see ``_projection_width``)."""
+    band = (zz > STEP_BAND[0]) & (zz < STEP_BAND[1])
+    start = rmin + 0.01
+    nb = int((limit - start) / step)
+    if nb < 4:
         return None
-    level = np.nanmedian(med[1:4]) if np.isfinite(med[1:4]).any() else np.nanmedian(med[:4])
-    for i in range(2, len(med)):
-        if np.isfinite(med[i]) and med[i] < level - 0.004:
-            return float(edges[i])
-    return None
-
-
-
-
+    k = ((dd[band] - start) / step).astype(int)
+    k = k[(k >= 0) & (k < nb)]
+    n = np.bincount(k, minlength=nb).astype(float)
+    sm = np.convolve(n, [0.25, 0.5, 0.25], mode="same")
+    i = int(np.argmax(sm))
+    inside = sm[:max(i - 1, 1)]
+    base = float(np.median(inside)) if len(inside) >= 2 else float(np.median(sm))
+    if sm[i] < STEP_PEAK * max(base, 1.0) or i == nb - 1:
+        return None
+    lo = i
+    while lo > 0 and sm[lo - 1] > 0.5 * sm[i]:
+        lo -= 1
+    hi = i
+    while hi < nb - 1 and sm[hi + 1] > 0.5 * sm[i]:
+        hi += 1
+    idx = np.arange(lo, hi + 1)
+    centre = start + (idx + 0.5) * step
+    w = float((centre * n[idx]).sum() / max(n[idx].sum(), 1.0))
+    return w, float(max((hi - lo + 1) * step / 2, step))
 
 
 class RingFilter:

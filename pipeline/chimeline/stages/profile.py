@@ -24,6 +24,9 @@ from .junction import Junction
 
 log = logging.getLogger(__name__)
 
+MODE_HALF_BINS = 2  # the noise-based rejection starts from the mode of a bin and this many bins each side
+MODE_STARTS = 64  # candidate starting heights for that mode
+
 
 @dataclass(frozen=True)
 class Profile:
@@ -48,6 +51,9 @@ class Profile:
     station_offset_n: dict = field(default_factory=dict)  # station id -> points in shared bins behind it
     slope_per_deg: Optional[np.ndarray] = None  # (n_bins,) m per degree, from the neighbouring bins
     leveled: bool = False  # station offsets were removed from the elevations
+    evidence: Optional[np.ndarray] = None  # (n_bins,) str: kinds joined ("top", "top+foot", "foot+step", ...; "")
+    width_deg: Optional[np.ndarray] = None  # (n_bins,) degrees, width of the window used (nan where empty)
+    fusion: Optional[object] = None  # stages.fusion.Fusion: the evidence model
 
 
 def n_bins_for(cfg: ProfileConfig, radius: float) -> int:
@@ -60,7 +66,6 @@ def n_bins_for(cfg: ProfileConfig, radius: float) -> int:
 def bin_junction(j: Junction, cfg: ProfileConfig, radius: float) -> Profile:
     nb = n_bins_for(cfg, radius)
     w = 360.0 / nb
-    centres = (np.arange(nb) + 0.5) * w
     b = (j.azimuth_deg / w).astype(int) % nb
     order = np.argsort(b, kind="stable")
     starts = np.searchsorted(b[order], np.arange(nb + 1))
@@ -96,13 +101,18 @@ def bin_junction(j: Junction, cfg: ProfileConfig, radius: float) -> Profile:
     offsets = {}
     for _ in range(cfg.max_iterations):
         offsets, _n = station_offsets(j.z[kept], b[kept], station[kept])
-        zc = j.z - _offset_of(station, offsets)
+        zc = j.z - offset_of(station, offsets)
         loc = _means(zc, b, kept, nb)
         r = zc - loc[b]
+        # a point alone in its bin has residual 0: the station's scale comes from bins of two or more, each
+        # residual scaled to the variance of one point (n / (n - 1))
+        nk = np.bincount(b[kept], minlength=nb)[b]
+        shared = kept & (nk >= 2)
+        rs = r * np.sqrt(nk / np.maximum(nk - 1, 1))
         new = kept.copy()
         for st in np.unique(station):
             m = station == st
-            rk = r[m & kept]
+            rk = rs[m & shared]
             if len(rk) < 10:
                 continue
             s = MAD_TO_SIGMA * np.median(np.abs(rk - np.median(rk)))
@@ -110,8 +120,76 @@ def bin_junction(j: Junction, cfg: ProfileConfig, radius: float) -> Profile:
         if np.array_equal(new, kept):
             break
         kept = new
+    return _from_kept(j, cfg, kept, nb)
+
+
+def reject_with_noise(p: Profile, j: Junction, scale: np.ndarray, cfg: ProfileConfig) -> Profile:
+    """Reject again with the measured noise instead of the bins' own scatter.
+
+    Mixed pixels widen a bin's robust scale, so the first rejection keeps them. With the noise known (``scale``,
+    (n,) m per candidate), each bin starts from the mode of its heights (kernel bandwidth = the noise) and keeps
+    what lies within
+    ``reject_k`` x scale of its mean, iterated with the station offsets and the profile's slope.
+    """
+    nb = len(p.azimuth_deg)
+    b = p.bin_index
+    daz = np.degrees(np.angle(np.exp(1j * np.radians(j.azimuth_deg - p.azimuth_deg[b]))))
+    slope = p.slope_per_deg if p.slope_per_deg is not None else np.zeros(nb)
+    loc = _mode_centres(j.z - offset_of(j.station, p.station_offset), j.azimuth_deg, b, scale, slope, p.azimuth_deg)
+    zl = j.z - offset_of(j.station, p.station_offset) - slope[b] * daz
+    kept = p.kept
+    for _ in range(cfg.max_iterations):
+        new = np.isfinite(loc[b]) & (np.abs(zl - loc[b]) <= cfg.reject_k * scale)
+        if np.array_equal(new, kept):
+            break
+        kept = new
+        offsets, _n = station_offsets(j.z[kept], b[kept], j.station[kept])
+        zl = j.z - offset_of(j.station, offsets) - slope[b] * daz
+        loc = np.where(np.bincount(b[kept], minlength=nb) > 0, _means(zl, b, kept, nb), loc)
+    return _from_kept(j, cfg, kept, nb)
+
+
+def _mode_centres(z, az, b, h, slope, centres, half=MODE_HALF_BINS):
+    """Per bin: the mode of a normal kernel density (bandwidth ``h`` per value) of the heights in the bin and
+    ``half`` bins each side, moved to the bin centre along the profile's slope; by mean shift from the densest of
+    up to ``MODE_STARTS`` quantiles. The plate's returns line up from bin to bin while
+    contaminants spread out, so the mode sits on the plate even in a bin where they are fewer."""
+    nb = len(centres)
+    out = np.full(nb, np.nan)
+    order = np.argsort(b, kind="stable")
+    starts = np.searchsorted(b[order], np.arange(nb + 1))
+    counts = np.diff(starts)
+    for k in np.nonzero(counts)[0]:
+        idx = np.concatenate([order[starts[i % nb]:starts[i % nb + 1]] for i in range(k - half, k + half + 1)])
+        v = z[idx] - slope[k] * np.degrees(np.angle(np.exp(1j * np.radians(az[idx] - centres[k]))))
+        hh = h[idx]
+        if len(v) <= 2:
+            out[k] = float(v.mean())
+            continue
+        # the density at up to MODE_STARTS quantiles of the values (bounded work on dense scans), then mean shift
+        tries = np.quantile(v, np.linspace(0, 1, min(len(v), MODE_STARTS)))
+        dens = np.exp(-0.5 * ((v[None, :] - tries[:, None]) / hh[None, :]) ** 2).sum(axis=1)
+        mu = float(tries[int(np.argmax(dens))])
+        for _ in range(20):
+            w = np.exp(-0.5 * ((v - mu) / hh) ** 2)
+            new = float((w * v).sum() / w.sum())
+            if abs(new - mu) < 1e-7:
+                break
+            mu = new
+        out[k] = mu
+    return out
+
+
+def _from_kept(j: Junction, cfg: ProfileConfig, kept: np.ndarray, nb: int) -> Profile:
+    """Every per-bin output of the profile from the kept candidates."""
+    w = 360.0 / nb
+    centres = (np.arange(nb) + 0.5) * w
+    b = (j.azimuth_deg / w).astype(int) % nb
+    order = np.argsort(b, kind="stable")
+    starts = np.searchsorted(b[order], np.arange(nb + 1))
+    station = j.station
     offsets, offsets_n = station_offsets(j.z[kept], b[kept], station[kept])
-    zl = j.z - _offset_of(station, offsets) if cfg.station_leveling == "adjust" else j.z
+    zl = j.z - offset_of(station, offsets) if cfg.station_leveling == "adjust" else j.z
     loc = _means(zl, b, kept, nb)
     n_pts = np.bincount(b[kept], minlength=nb)
     n_tot = np.bincount(b, minlength=nb)
@@ -157,7 +235,8 @@ def bin_junction(j: Junction, cfg: ProfileConfig, radius: float) -> Profile:
                    leveled=cfg.station_leveling == "adjust" and bool(offsets))
 
 
-def _offset_of(station, offsets):
+def offset_of(station, offsets) -> np.ndarray:
+    """Each point's station offset (m) from ``offsets`` (station id -> m); 0 for stations without one."""
     if not offsets:
         return np.zeros(len(station))
     ids = np.array(sorted(offsets))

@@ -68,8 +68,8 @@ def fit_shell(xyz: np.ndarray, cfg: ShellConfig, rng: np.random.Generator, *, ce
     P, N = pts[cand], nrm[cand]
     n_cand = len(P)
     if n_cand < 20:
-        raise StageError(f"shell: only {n_cand} points with near-horizontal normals in the sample; "
-                         f"is the scan of a tank? (try shell.max_normal_z, shell.voxel_size)")
+        raise StageError(f"shell: no tank shell found: only {n_cand} points with near-horizontal normals in the "
+                         f"sample; is the scan of a tank? (try shell.max_normal_z, shell.voxel_size)")
     remaining = np.ones(n_cand, bool)
     found = []
     trials_total = 0
@@ -95,6 +95,10 @@ def fit_shell(xyz: np.ndarray, cfg: ShellConfig, rng: np.random.Generator, *, ce
         cov = _coverage(P[inl], fit)
         found.append((fit, n_in, cov, h_ext, P[inl]))
     good = [f for f in found if cfg.min_radius <= f[0][3] <= cfg.max_radius and f[3] >= cfg.min_height]
+    # a tank shell is well supported: enough inliers around enough of the circle (a pipe rack, a wall or a
+    # curb can give a short weak arc of a big circle)
+    weak = [f for f in good if f[1] < cfg.min_inliers or f[2] < cfg.min_coverage]
+    good = [f for f in good if f not in weak]
     # concentric cylinders (ringwall face, insulation jacket, a course) belong to one tank: keep the tallest
     good.sort(key=lambda f: -f[3] * f[1])
     merged = []
@@ -104,6 +108,8 @@ def fit_shell(xyz: np.ndarray, cfg: ShellConfig, rng: np.random.Generator, *, ce
             merged.append(f)
     good = merged
     if not good:
+        if weak:
+            raise StageError(_weak_shell_message(max(weak, key=lambda f: f[1] * f[2]), cfg))
         raise StageError(_no_shell_message(found, cfg, n_cand, trials_total, metres_per_unit))
     if center_hint is not None:
         hint = np.asarray(center_hint, dtype=float)
@@ -115,8 +121,11 @@ def fit_shell(xyz: np.ndarray, cfg: ShellConfig, rng: np.random.Generator, *, ce
         k = int(np.argmax(score))
         why = "most complete cylinder (sector coverage x inliers)"
     (cx, cy, z0, r, ax), n_in, cov, h_ext, inl_pts = good[k]
+    # other cylinders in view, the weakly supported ones included (a neighbouring tank seen from one side), but
+    # not the chosen tank's own concentric faces
+    also = [f for f in weak if np.hypot(f[0][0] - cx, f[0][1] - cy) > 0.1 * r]
     others = tuple(TankCandidate(np.array([f[0][0], f[0][1]]), f[0][3], f[1], f[2], f[3])
-                   for j, f in enumerate(good) if j != k)
+                   for f in [g for j, g in enumerate(good) if j != k] + also)
     res = _radial_residual(inl_pts, (cx, cy, z0, r, ax))
     log.debug("shell: r = %.3f m at (%.2f, %.2f), %d inliers, coverage %.0f %%, %d other cylinder(s)",
              r, cx, cy, n_in, 100 * cov, len(others))
@@ -249,6 +258,18 @@ def _coverage(P, fit):
     az = np.mod(np.arctan2(P[:, 0] - cx, P[:, 1] - cy), 2 * np.pi)
     sec = np.bincount((az / (2 * np.pi) * N_SECTORS).astype(int) % N_SECTORS, minlength=N_SECTORS)
     return float((sec >= 3).mean())
+
+
+def _weak_shell_message(f, cfg):
+    r, n_in, cov, h_ext = f[0][3], f[1], f[2], f[3]
+    why = []
+    if n_in < cfg.min_inliers:
+        why.append(f"only {n_in} inliers (shell.min_inliers = {cfg.min_inliers})")
+    if cov < cfg.min_coverage:
+        why.append(f"inliers on only {100 * cov:.0f} % of the circle (shell.min_coverage = {cfg.min_coverage})")
+    return (f"shell: no tank shell found: the best cylinder (r = {r:.4g} m, {h_ext:.2f} m tall) has "
+            f"{' and '.join(why)}; is this a scan of a tank? (a tank seen from one side only may need a lower "
+            f"shell.min_coverage)")
 
 
 def _no_shell_message(found, cfg, n_cand, trials, metres_per_unit):

@@ -22,6 +22,7 @@ __all__ = ["Scene", "Simulator", "ScanChunk", "load_scene", "scene_from_mapping"
            "truth_junction", "shell_truth"]
 
 N_COVER = 3600  # 0.1 degree cells for the coverage of the projection top
+FOOT_HEIGHT = 0.01  # m: shell returns this close above the junction count as evidence of its elevation
 
 
 def truth_junction(scene: Scene, az_deg) -> np.ndarray:
@@ -74,10 +75,12 @@ def run_synth(scene: Scene, out_dir, *, name: str | None = None, progress=None, 
     truth_path = out_dir / f"{name}.truth.json"
     sim = Simulator(scene)
     date = datetime.date.fromisoformat(scene.survey_date)
-    writer = ScanWriter(scan_path, fmt, scene.output.units, scene.output.georef_offset, date, software)
+    writer = ScanWriter(scan_path, fmt, scene.output.units, scene.output.georef_offset, date, software,
+                        station_ids=scene.output.station_ids, scale=scene.output.scale)
     stats = [_Stats() for _ in sim.stations]
     cover = np.zeros(N_COVER, dtype=np.int64)
     label_counts = np.zeros(len(G.LABEL_NAMES), dtype=np.int64)
+    evidence = {k: np.zeros(360, dtype=np.int64) for k in ("plate_top", "step_face", "shell_foot")}
     total_rays = sum(sim.ray_count(s) for s in sim.stations)
     stride = max(1, total_rays // max(sample_size, 1))
     samples_xyz, samples_lab, samples_st = [], [], []
@@ -112,6 +115,7 @@ def run_synth(scene: Scene, out_dir, *, name: str | None = None, progress=None, 
                     st.pred2 += float(((sr * sin_e) ** 2 + (rng_ * sa * cos_e) ** 2).sum())
                     az = G.azimuth(ch.xyz_true[top, 0] - cx, ch.xyz_true[top, 1] - cy)
                     cover += np.bincount((az / (2 * np.pi) * N_COVER).astype(int) % N_COVER, minlength=N_COVER)
+                _count_evidence(evidence, sim.tank, ch)
                 sel = np.arange(seen, seen + len(ch.xyz)) % stride == 0
                 seen += len(ch.xyz)
                 samples_xyz.append(ch.xyz[sel])
@@ -124,10 +128,35 @@ def run_synth(scene: Scene, out_dir, *, name: str | None = None, progress=None, 
         writer.abort()
         raise
     truth = _truth_dict(scene, sim, stats, cover, label_counts, writer.count, scan_path)
+    truth["junction_evidence"] = _evidence_dict(evidence)
     write_json(truth_path, truth)
     sample = {"xyz": np.concatenate(samples_xyz), "label": np.concatenate(samples_lab),
               "station": np.concatenate(samples_st)}
     return SynthResult(scan_path, truth_path, writer.count, time.perf_counter() - t0, truth, sample)
+
+
+def _count_evidence(evidence: dict, tank, ch) -> None:
+    """Per 1-degree bin, non-mixed first hits that carry the junction elevation, by kind."""
+    kinds = {"plate_top": ch.label == G.PLATE_TOP, "step_face": ch.label == G.PLATE_EDGE,
+             "shell_foot": ch.label == G.SHELL}
+    if kinds["shell_foot"].any():
+        q = tank.to_tank(ch.xyz_true[kinds["shell_foot"]])
+        low = q[:, 2] - tank.u(G.azimuth(q[:, 0], q[:, 1])) < FOOT_HEIGHT
+        kinds["shell_foot"][np.nonzero(kinds["shell_foot"])[0][~low]] = False
+    for k, m in kinds.items():
+        if m.any():
+            q = tank.to_tank(ch.xyz_true[m])
+            deg = (np.degrees(G.azimuth(q[:, 0], q[:, 1]))).astype(int) % 360
+            evidence[k] += np.bincount(deg, minlength=360)
+
+
+def _evidence_dict(evidence: dict) -> dict:
+    any_kind = sum(evidence.values()) > 0
+    return {"bin_deg": 1.0, "shell_foot_height": FOOT_HEIGHT,
+            "note": "non-mixed first hits per 1-degree bin (tank-frame azimuth) on the projection top, on its step "
+                    "face, and on the shell within shell_foot_height above the junction",
+            **{k: v.tolist() for k, v in evidence.items()},
+            "fraction_1deg": float(any_kind.mean())}
 
 
 def _gaps(cover: np.ndarray) -> list[dict]:
@@ -162,6 +191,7 @@ def _truth_dict(scene, sim, stats, cover, label_counts, n_points, scan_path) -> 
     return {
         "scene": scene.name, "terminal": scene.terminal, "tank_tag": scene.tank.tag, "survey_date": scene.survey_date,
         "seed": scene.seed, "units": units, "format": scene.output.format, "scan_file": scan_path.name,
+        "station_ids": scene.output.station_ids, "coordinate_scale": scene.output.scale,
         "n_points": int(n_points),
         "azimuth_convention": "degrees clockwise from +Y of the scan frame, [0, 360)",
         "tank": {

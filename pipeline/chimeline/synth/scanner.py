@@ -190,13 +190,14 @@ class Simulator:
                 for c0 in range(0, len(h_all), cols_per_chunk):
                     h = h_all[c0:c0 + cols_per_chunk]
                     rng = stream(sc.seed, Purpose.SYNTH_CHUNK, chunk_idx, offset=stn.index)
+                    mix_rng = stream(sc.seed, Purpose.SYNTH_MIXING, chunk_idx, offset=stn.index)
                     chunk_idx += 1
-                    out = self._scan_block(stn, h, v, rng, t_clock)
+                    out = self._scan_block(stn, h, v, rng, t_clock, mix_rng)
                     t_clock += len(h) * 0.01
                     if out is not None:
                         yield out
 
-    def _scan_block(self, stn, h, v, rng, t_clock):
+    def _scan_block(self, stn, h, v, rng, t_clock, mix_rng=None):
         p = stn.params
         o = stn.position
         H, V = np.meshgrid(h, v, indexing="ij")  # (ncol, nrow)
@@ -244,6 +245,12 @@ class Simulator:
         r_true = t[idx]
         alpha = rng.uniform(0.15, 0.85, len(idx))
         r_meas = np.where(mix[idx], r_true + alpha * (mixed_target.reshape(-1)[idx] - r_true), r_true)
+        if (p.crease_mixed_prob > 0 or p.edge_mixed_prob > 0) and mix_rng is not None:
+            fm, f_target = self._footprint_mixing(stn, H.reshape(-1)[idx], V.reshape(-1)[idx], r_true, lab[idx],
+                                                  mix_rng)
+            fm &= ~mix[idx]
+            mix[idx[fm]] = True
+            r_meas = np.where(fm, r_true + mix_rng.uniform(0.15, 0.85, len(idx)) * (f_target - r_true), r_meas)
         cos_inc = np.abs(np.einsum("ij,ij->i", nrm[idx], d[idx]))
         # range precision degrades at grazing incidence
         inc_factor = 1.0 + p.incidence_noise_gain * (1.0 / np.maximum(cos_inc, 0.05) - 1.0)
@@ -264,4 +271,52 @@ class Simulator:
         inten = np.clip(inten * rng.lognormal(0, 0.08, len(idx)), 1, 65535).astype(np.uint16)
         gps = t_clock + idx.astype(float) * 1e-6
         return ScanChunk(xyz_reg, xyz_true, labels, np.full(len(idx), stn.index, np.uint16), inten, gps, xyz_meas)
+
+    def _footprint_mixing(self, stn, h, v, r, lab, rng):
+        """Returns whose beam footprint straddles the shell/plate crease or the projection's outer edge.
+
+        The rays ``h``, ``v`` (radians) hit at ranges ``r`` with labels ``lab``. For hits near the main tank's
+        base, two more rays are cast at the footprint's upper and lower rim (elevation +- half the footprint
+        angle); where one meets another surface across the crease (shell <-> plate top) or the plate's outer edge
+        (plate top or step face <-> step face, foundation or ground), the footprint straddles, and with
+        ``crease_mixed_prob`` / ``edge_mixed_prob`` the scanner reports a range between the two surfaces' ranges.
+        Returns (mixed (n,) bool, range of the other surface (n,) m).
+        """
+        p = stn.params
+        o = stn.position
+        tk = self.tank
+        n = len(r)
+        mixed = np.zeros(n, bool)
+        target = r.copy()
+        near_kinds = (G.SHELL, G.PLATE_TOP, G.PLATE_EDGE, G.FOUNDATION_TOP, G.FOUNDATION_FACE, G.GROUND)
+        cv = np.cos(v)
+        d = np.stack([cv * np.sin(h), cv * np.cos(h), np.sin(v)], axis=1)
+        q = tk.to_tank(o + r[:, None] * d)
+        rho = np.hypot(q[:, 0], q[:, 1])
+        az = G.azimuth(q[:, 0], q[:, 1])
+        cand = np.isin(lab, near_kinds) & (np.abs(q[:, 2] - tk.u(az)) < 0.25) & (rho < tk.R + tk.w + 0.6)
+        idx = np.nonzero(cand)[0]
+        if len(idx) == 0:
+            return mixed, target
+        half = 0.5 * (p.beam_exit_diameter + 1e-3 * p.beam_divergence_mrad * r[idx]) / r[idx]
+        plate = (G.PLATE_TOP, G.PLATE_EDGE)
+        beyond = (G.PLATE_EDGE, G.FOUNDATION_TOP, G.FOUNDATION_FACE, G.GROUND)
+        la = lab[idx]
+        best_t = np.full(len(idx), np.nan)
+        kind = np.zeros(len(idx), np.int8)  # 1 crease, 2 edge
+        for sign in (1.0, -1.0):
+            vv = v[idx] + sign * half
+            c2 = np.cos(vv)
+            d2 = np.stack([c2 * np.sin(h[idx]), c2 * np.cos(h[idx]), np.sin(vv)], axis=1)
+            t2, _, l2 = self.first_hit(o, d2)
+            crease = ((la == G.SHELL) & (l2 == G.PLATE_TOP)) | ((la == G.PLATE_TOP) & (l2 == G.SHELL))
+            edge = (l2 != la) & ((np.isin(la, plate) & np.isin(l2, beyond)) | (np.isin(la, beyond) & np.isin(l2, plate)))
+            new = np.isnan(best_t) & np.isfinite(t2) & (crease | edge)
+            best_t[new] = t2[new]
+            kind[new] = np.where(crease[new], 1, 2)
+        prob = np.where(kind == 1, p.crease_mixed_prob, np.where(kind == 2, p.edge_mixed_prob, 0.0))
+        take = rng.random(len(idx)) < prob
+        mixed[idx[take]] = True
+        target[idx[take]] = best_t[take]
+        return mixed, target
 

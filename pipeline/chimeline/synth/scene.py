@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Optional
 
-from ..config import build, choice_field, load_yaml, rng_field, merge_sets
+from ..config import build, choice_field, date_field, load_yaml, rng_field, merge_sets
 from ..errors import ConfigError
 
 
@@ -37,7 +37,7 @@ class OvalityScene:
 @dataclass(frozen=True)
 class TankScene:
     tag: str = "T-1"
-    center: tuple[float, float] = (0.0, 0.0)
+    center: tuple[float, float] = rng_field((0.0, 0.0), -1e4, 1e4, doc="m, in the scene frame")
     diameter: float = rng_field(30.0, 2.0, 120.0, doc="outer diameter of the bottom course, m")
     height: float = rng_field(12.0, 2.0, 30.0, doc="shell height, m")
     base_elevation: float = rng_field(0.45, -5.0, 5.0, doc="unsettled junction elevation, m")
@@ -84,7 +84,7 @@ class SettlementScene:
 @dataclass(frozen=True)
 class GroundScene:
     elevation: float = rng_field(0.0, -10.0, 10.0, doc="at the tank centre, m")
-    slope: tuple[float, float] = (0.0, 0.0)
+    slope: tuple[float, float] = rng_field((0.0, 0.0), -1.0, 1.0, doc="fall per unit run along x and y")
     roughness: float = rng_field(0.004, 0.0, 0.05, doc="amplitude of the ground undulation, m")
 
 
@@ -109,14 +109,14 @@ class NozzleScene:
 
 @dataclass(frozen=True)
 class PoleScene:
-    position: tuple[float, float] = (0.0, 0.0)
+    position: tuple[float, float] = rng_field((0.0, 0.0), -1e4, 1e4, doc="m")
     diameter: float = rng_field(0.2, 0.02, 2.0)
     height: float = rng_field(6.0, 0.5, 30.0)
 
 
 @dataclass(frozen=True)
 class BushScene:
-    position: tuple[float, float] = (0.0, 0.0)
+    position: tuple[float, float] = rng_field((0.0, 0.0), -1e4, 1e4, doc="m")
     radius: float = rng_field(0.4, 0.05, 3.0)
 
 
@@ -161,12 +161,17 @@ class StationParams:
     max_range: float = rng_field(80.0, 5.0, 500.0)
     registration: RegistrationScene = field(default_factory=RegistrationScene)
     band: Optional[BandParams] = None
+    crease_mixed_prob: float = rng_field(0.0, 0.0, 1.0, doc="chance that a return whose footprint straddles the "
+                                                             "shell/plate crease is mixed (range between the two)")
+    edge_mixed_prob: float = rng_field(0.0, 0.0, 1.0, doc="chance that a return whose footprint straddles the "
+                                                           "projection's outer edge (plate top, step face, "
+                                                           "foundation) is mixed")
 
 
 @dataclass(frozen=True)
 class StationScene:
-    position: Optional[tuple[float, float]] = None
-    azimuth_deg: Optional[float] = None
+    position: Optional[tuple[float, float]] = rng_field(None, -1e4, 1e4, doc="m")
+    azimuth_deg: Optional[float] = rng_field(None, -360.0, 360.0)
     distance_from_shell: float = rng_field(10.0, 1.0, 200.0)
     overrides: dict = field(default_factory=dict)
 
@@ -184,15 +189,19 @@ class StationsScene:
 class OutputScene:
     format: str = choice_field("las14", ("las14", "las12", "laz", "ply", "xyz", "npy"))
     units: str = choice_field("m", ("m", "ft", "us_ft"))
-    georef_offset: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    georef_offset: tuple[float, float, float] = rng_field((0.0, 0.0, 0.0), -1e8, 1e8, doc="added to the written "
+                                                                                            "coordinates, output units")
     chunk_rays: int = rng_field(2_000_000, 10_000, 50_000_000)
+    station_ids: bool = True  # false: a merged cloud (point source id 0 in LAS/LAZ; no station column otherwise)
+    scale: float = rng_field(1e-4, 1e-6, 0.1, doc="coordinate resolution in file units: the LAS/LAZ scale "
+                                                   "factor; ASCII keeps the decimals it implies")
 
 
 @dataclass(frozen=True)
 class Scene:
     name: str = "scene"
     terminal: str = "Invented terminal"
-    survey_date: str = "2026-06-15"
+    survey_date: str = date_field("2026-06-15")
     seed: int = rng_field(1, 0, 2**63 - 1)
     density: float = rng_field(1.0, 1e-4, 1000.0, doc="multiplies the ray count (angular steps / sqrt)")
     tank: TankScene = field(default_factory=TankScene)

@@ -12,7 +12,6 @@ input file) and the same resolved config is skipped unless ``force``.
 """
 from __future__ import annotations
 
-import datetime
 import logging
 import os
 import socket
@@ -24,11 +23,11 @@ from typing import Callable, Optional
 
 from ..config import config_hash, load_config
 from ..core.hashing import sha256_file
-from ..errors import ChimelineError, ConfigError, DependencyError, InputError
-from ..io.atomic import check_writable, json_text, write_files
+from ..errors import ChimelineError, ConfigError, DependencyError, InputError, one_line as message_line
+from ..io.atomic import FolderLock, check_target, check_writable, json_text, write_files
 from ..io.batch_manifest import BatchJob, read_batch_manifest
 from ..io.readers import expand_inputs
-from ..io.runfiles import EVALUATION_JSON, PROFILE_JSON, read_json
+from ..io.runfiles import KIND_EVALUATION, KIND_RUN, provenance_record, read_manifest
 from ..report.fleet import fleet_outputs
 from ..version import __version__
 from .evaluate import evaluate_file
@@ -75,11 +74,11 @@ class BatchResult:
 
 
 def one_line(exc: BaseException) -> str:
-    """An error as one line: a ChimelineError's message, anything else with its type."""
-    text = " ".join(str(exc).split()) or type(exc).__name__
-    if not isinstance(exc, ChimelineError):
-        text = f"{type(exc).__name__}: {text}"
-    return text[:500]
+    """A failed job's error as the one line the command line would print for it (after ``chimeline: error:``):
+    a ChimelineError's message; anything else as the CLI shows a bug, ``internal error: Type: message``."""
+    if isinstance(exc, ChimelineError):
+        return message_line(exc)
+    return f"internal error: {type(exc).__name__}: {message_line(exc, 300)}"
 
 
 def _job_inputs(job: BatchJob) -> list:
@@ -89,23 +88,29 @@ def _job_inputs(job: BatchJob) -> list:
     return [Path(p) for p in expand_inputs([job.scan])]
 
 
-def _is_current(folder: Path, job: BatchJob, resolved: dict) -> bool:
-    """The folder holds this job's result: same kind, same input files (SHA-256) and same resolved config."""
-    if job.kind == "run":
-        p = folder / PROFILE_JSON
-        if not p.is_file() or not (folder / "profile.csv").is_file():
+def is_current(folder: Path, job: BatchJob, resolved: dict) -> bool:
+    """The folder holds this job's result: its manifest.json names the same kind, the same input files (SHA-256, in
+    order) and the same resolved config hash, and every file it lists is there with its size."""
+    try:
+        m = read_manifest(folder)
+    except ChimelineError:  # a damaged manifest: redo the job (its publish replaces the folder)
+        return False
+    if m is None or m.kind != (KIND_RUN if job.kind == "run" else KIND_EVALUATION):
+        return False
+    if m.config_sha256 != config_hash(resolved):
+        return False
+    have = [i.sha256 for i in m.inputs if i.role in ("scan", "survey", "profile")]
+    try:
+        want = [sha256_file(p) for p in _job_inputs(job)]
+    except (OSError, ChimelineError):
+        return False  # the input is gone or unreadable: the job runs and fails with the reader's message
+    if have != want:
+        return False
+    for rel, info in m.files.items():
+        p = folder / rel
+        if not p.is_file() or (isinstance(info, dict) and p.stat().st_size != info.get("bytes")):
             return False
-        js = read_json(p)
-        have = list((js.get("input") or {}).get("sha256_files") or [])
-        want = [sha256_file(x) for x in _job_inputs(job)]
-    else:
-        p = folder / EVALUATION_JSON
-        if not p.is_file() or (folder / PROFILE_JSON).exists():
-            return False
-        js = read_json(p)
-        have = [(js.get("input") or {}).get("sha256")]
-        want = [sha256_file(job.scan)] if job.scan.is_file() else [None]
-    return have == want and (js.get("config") or {}).get("sha256") == config_hash(resolved)
+    return True
 
 
 def _where() -> str:
@@ -125,7 +130,7 @@ def run_job(job: BatchJob, out_root: str, force: bool = False, index: int = 0,
     base = dict(index=index, tag=job.tag, survey_date=job.survey_date, kind=job.kind, worker=_where())
     try:
         _, resolved, _ = load_config(job.config, job.config_sets())
-        if not force and folder.is_dir() and _is_current(folder, job, resolved):
+        if not force and folder.is_dir() and is_current(folder, job, resolved):
             return JobOutcome(status="skipped", seconds=time.perf_counter() - t0, **base)
         if job.kind == "run":
             run_scan(job.scan, folder, job.config, job.config_sets())
@@ -229,10 +234,21 @@ def run_batch(manifest, out_dir, *, workers: Optional[int] = None, memory_limit=
     """
     t0 = time.perf_counter()
     m = read_batch_manifest(manifest)
-    out = Path(os.path.abspath(out_dir))
+    out = check_target(out_dir, replaced=False)
     check_writable(out)
     check_jobs(m.jobs)
     outcomes: list = [None] * len(m.jobs)
+    lock = FolderLock(out)  # one batch at a time writes DIR's fleet files (each job locks its own folder too)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    lock.acquire()
+    try:
+        return _run_locked(m, out, t0, outcomes, workers, memory_limit, scheduler, client, retries, force, on_job)
+    finally:
+        lock.release()
+
+
+def _run_locked(m, out: Path, t0: float, outcomes: list, workers, memory_limit, scheduler, client, retries, force,
+                on_job) -> BatchResult:
     with dask_client(workers, memory_limit, scheduler, client) as (c, engine):
         from distributed import as_completed
 
@@ -266,13 +282,9 @@ def run_batch(manifest, out_dir, *, workers: Optional[int] = None, memory_limit=
 
 def _provenance(engine: str, seconds: float, outcomes, force: bool, retries: int) -> dict:
     """provenance.json of the batch folder: where, when and how fast (the file two identical batches differ in)."""
-    return {"note": "engine, host, time and timings of this batch; every other file depends only on the inputs",
-            "command": "batch", "created_utc": datetime.datetime.now(datetime.timezone.utc).isoformat(
-                timespec="seconds"),
-            "host": socket.gethostname(), "engine": engine, "force": force, "retries": retries,
-            "software": {"name": "chimeline", "version": __version__}, "total_s": round(seconds, 3),
-            "jobs": [{"tag": o.tag, "survey_date": o.survey_date, "status": o.status, "seconds": round(o.seconds, 3),
-                      "worker": o.worker} for o in outcomes]}
+    return provenance_record("batch", {"total": seconds}, engine=engine, force=force, retries=retries,
+                             jobs=[{"tag": o.tag, "survey_date": o.survey_date, "status": o.status,
+                                    "seconds": round(o.seconds, 3), "worker": o.worker} for o in outcomes])
 
 
 def _row(out: Path, oc: JobOutcome) -> FleetRow:

@@ -8,19 +8,49 @@ The statistics are in ``evaluate.comparison``; run folders are read through ``io
 from __future__ import annotations
 
 import datetime
+import hashlib
 import math
-from pathlib import Path
+import os
+import time
 
 import numpy as np
 
-from ..errors import InputError
+from ..config import EvaluateConfig, config_hash
+from ..errors import ConfigError, InputError, clip_repr
 from ..evaluate.comparison import (CONSISTENCY_NOTE, brown_forsythe, equivalence, noise_in_words, profile_difference,
                                    variance_ratio)
-from ..io.atomic import check_writable, staging_dir, write_files
-from ..io.runfiles import read_run_folder
+from ..io.atomic import OutputSlot
+from ..io.runfiles import (KIND_COMPARE, MANIFEST_JSON, FolderInput, kind_guard, provenance_record, read_run_folder,
+                           with_manifest)
 from ..report.compare_html import compare_outputs
 from ..report.console import p_text
 from ..units import to_metres
+
+
+class _Bad(Exception):
+    """A malformed profile.json entry (turned into one InputError naming the file)."""
+
+
+def _number(v, what, *, positive=False, nonnegative=False) -> float:
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+        raise _Bad(f"'{what}' must be a finite number, got {clip_repr(v, 40)}")
+    if (positive and v <= 0) or (nonnegative and v < 0):
+        raise _Bad(f"'{what}' must be {'> 0' if positive else '>= 0'}, got {clip_repr(v, 40)}")
+    return float(v)
+
+
+def _estimate(e, what, f, need_dof=True):
+    """(sigma, ci, dof) of a noise estimate, lengths in metres, validated; dof None when not needed."""
+    if not isinstance(e, dict):
+        raise _Bad(f"'{what}' must be a mapping")
+    ci = e.get("ci95", e.get("ci"))
+    if not isinstance(ci, (list, tuple)) or len(ci) != 2:
+        raise _Bad(f"'{what}.ci' must be two numbers")
+    dof = e.get("dof")
+    if need_dof and (isinstance(dof, bool) or not isinstance(dof, int) or dof < 1):
+        raise _Bad(f"'{what}.dof' must be a whole number >= 1, got {clip_repr(dof, 40)}")
+    return (_number(e.get("sigma"), f"{what}.sigma", positive=True) * f,
+            tuple(_number(c, f"{what}.ci", positive=True) * f for c in ci), dof if need_dof else None)
 
 
 def load_run(run_dir) -> dict:
@@ -28,21 +58,35 @@ def load_run(run_dir) -> dict:
     rf = read_run_folder(run_dir)
     d = rf.path
     f = rf.metres_per_unit
-    n = rf.get("noise", default={}) or {}
+    n = rf.get("noise", default={})
     try:
-        ci = n.get("ci95") or n.get("ci")
-        stations = [{"station": s["station"], "sigma": s["within_bin"]["sigma"] * f if s["within_bin"] else None,
-                     "ci": [c * f for c in s["within_bin"]["ci"]] if s["within_bin"] else None,
-                     "dof": s["within_bin"]["dof"] if s["within_bin"] else 0} for s in n.get("stations", [])]
-        setup = (rf.config.get("input") or {}).get("setup") or ""
-        out = {"dir": str(d), "tag": rf.get("tank", "tag") or "", "date": rf.get("tank", "survey_date") or "",
-               "setup": setup, "name": setup or rf.get("tank", "survey_date") or d.name,
-               "sigma": n["sigma"] * f, "ci": (ci[0] * f, ci[1] * f), "dof": n["within_bin"]["dof"],
-               "datum_sigma": (n.get("datum_sigma") or 0) * f, "stations": stations,
-               "center": rf.summary["shell"]["center"], "radius": rf.summary["shell"]["radius"] * f,
-               "units": rf.units}
-    except (KeyError, TypeError, IndexError) as exc:
-        raise InputError(f"{d / 'profile.json'}: missing or malformed entry {exc}") from None
+        if not isinstance(n, dict):
+            raise _Bad("'noise' must be a mapping")
+        sigma, ci, _ = _estimate(n, "noise", f, need_dof=False)
+        _, _, dof = _estimate(n.get("within_bin"), "noise.within_bin", f)
+        stations = []
+        for i, st in enumerate(n.get("stations") or []):
+            wb = st.get("within_bin") if isinstance(st, dict) else None
+            s_sigma, s_ci, s_dof = _estimate(wb, f"noise.stations[{i}].within_bin", f) if wb else (None, None, 0)
+            stations.append({"station": st.get("station") if isinstance(st, dict) else i, "sigma": s_sigma,
+                             "ci": list(s_ci) if s_ci else None, "dof": s_dof})
+        shell = rf.summary.get("shell")
+        center = shell.get("center") if isinstance(shell, dict) else None
+        if not isinstance(center, (list, tuple)) or len(center) != 2:
+            raise _Bad("'shell.center' must be two numbers")
+        tank = rf.summary.get("tank") if isinstance(rf.summary.get("tank"), dict) else {}
+        inp = rf.config.get("input") if isinstance(rf.config.get("input"), dict) else {}
+        setup, date = str(inp.get("setup") or ""), str(tank.get("survey_date") or "")
+        out = {"dir": str(d), "tag": str(tank.get("tag") or ""), "date": date, "setup": setup,
+               "name": setup or date or d.name, "sigma": sigma, "ci": ci, "dof": dof,
+               "datum_sigma": _number(n.get("datum_sigma") or 0, "noise.datum_sigma", nonnegative=True) * f,
+               "stations": stations, "center": [_number(c, "shell.center") for c in center],
+               "radius": _number(shell.get("radius"), "shell.radius", positive=True) * f, "units": rf.units}
+    except _Bad as exc:
+        raise InputError(f"{d / 'profile.json'}: {exc}") from None
+    mp = d / MANIFEST_JSON
+    out["input"] = FolderInput("run", os.path.abspath(d),
+                               hashlib.sha256(mp.read_bytes()).hexdigest() if rf.manifest is not None else None)
     p = rf.profile
     out.update(az=p.azimuth_deg, el=p.elevation * f, se=p.std_error * f, ok=p.status == "ok")
     if rf.residuals is not None:
@@ -78,6 +122,11 @@ def profile_change(base: dict, r: dict) -> tuple[bool, dict]:
 
 
 def compare_runs(dirs, alpha=0.05, margin=0.1) -> dict:
+    md = EvaluateConfig.__dataclass_fields__["alpha"].metadata
+    if isinstance(alpha, bool) or not isinstance(alpha, (int, float)) or not md["min"] <= alpha <= md["max"]:
+        raise ConfigError(f"--alpha must be a significance level in [{md['min']}, {md['max']}], got {clip_repr(alpha)}")
+    if isinstance(margin, bool) or not isinstance(margin, (int, float)) or not 1e-3 <= margin <= 10.0:
+        raise ConfigError(f"--margin must be a share in [0.001, 10], got {clip_repr(margin)}")
     runs = [load_run(d) for d in dirs]
     if len(runs) < 2:
         raise InputError("compare needs at least two run folders")
@@ -104,8 +153,12 @@ def compare_runs(dirs, alpha=0.05, margin=0.1) -> dict:
 
 
 def write_compare(result, out_dir) -> dict:
-    check_writable(out_dir)
-    files, js = compare_outputs(result)
-    with staging_dir(Path(out_dir)) as stage:
-        write_files(stage, files)
+    """Publish the compare folder (compare.json, compare.csv, compare.html, manifest, provenance)."""
+    t0 = time.perf_counter()
+    with OutputSlot(out_dir, guard=kind_guard(KIND_COMPARE), inputs=[r["dir"] for r in result["runs"]]) as slot:
+        files, js = compare_outputs(result)
+        settings = config_hash({"alpha": result["alpha"], "margin": result.get("margin")})
+        slot.publish(with_manifest(files, KIND_COMPARE, [r["input"] for r in result["runs"]], settings,
+                                   provenance_record("compare", {"total": time.perf_counter() - t0},
+                                                     recovered=slot.recovered)))
     return js

@@ -3,15 +3,18 @@ from __future__ import annotations
 
 import dataclasses
 import logging
+import os
+import time
 from pathlib import Path
 
-from ..config import load_config
+from ..config import config_hash, load_config
 from ..core.hashing import sha256_file
 from ..evaluate import decimation_study, evaluate_survey, has_tank_data, tank_data
 from ..evaluate.results import Evaluation
 from ..io.arctable import load_arc_table
-from ..io.atomic import check_writable, staging_dir, write_files
-from ..io.pdf import html_to_pdf
+from ..io.atomic import OutputSlot
+from ..io.pdf import pdf_bytes
+from ..io.runfiles import KIND_EVALUATION, FolderInput, kind_guard, provenance_record, with_manifest
 from ..io.surveys import SurveyData, read_survey
 from ..report.evaluation_files import evaluation_outputs
 
@@ -61,16 +64,22 @@ def evaluate_run(res) -> Evaluation | None:
 
 
 def evaluate_file(path, out_dir, config_path=None, sets=()) -> Evaluation:
-    """Evaluate a profile.csv or a survey CSV and write the evaluation folder."""
+    """Evaluate a profile.csv or a survey CSV and publish the evaluation folder (refusing a folder of another kind,
+    such as the run folder the profile came from)."""
     cfg, resolved, source = load_config(config_path, sets)
-    check_writable(out_dir)
-    s = read_survey(path, cfg.evaluate)
-    tank = tank_data(cfg.tank, s.units)
-    ev = _evaluate(s, tank, cfg)
-    files = evaluation_outputs(ev, s.units, resolved=resolved, config_source=source, input_path=Path(path),
-                               input_sha256=sha256_file(path))
-    with staging_dir(out_dir) as stage:
-        write_files(stage, files)
+    path = Path(os.path.abspath(path))
+    with OutputSlot(out_dir, guard=kind_guard(KIND_EVALUATION), inputs=[path]) as slot:
+        t0 = time.perf_counter()
+        s = read_survey(path, cfg.evaluate)
+        tank = tank_data(cfg.tank, s.units)
+        ev = _evaluate(s, tank, cfg)
+        sha = sha256_file(path)
+        files = evaluation_outputs(ev, s.units, resolved=resolved, config_source=source, input_path=path,
+                                   input_sha256=sha)
         if cfg.output.pdf:
-            html_to_pdf(stage / "report.html", stage / "report.pdf")
+            files["report.pdf"] = pdf_bytes(files["report.html"])
+        inputs = [FolderInput("profile" if s.dense else "survey", str(path), sha)]
+        slot.publish(with_manifest(files, KIND_EVALUATION, inputs, config_hash(resolved),
+                                   provenance_record("evaluate", {"total": time.perf_counter() - t0},
+                                                     recovered=slot.recovered)))
     return ev

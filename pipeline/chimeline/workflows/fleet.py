@@ -251,14 +251,20 @@ def _extrapolation(out_dir: Path, a: FleetRow, b: FleetRow) -> tuple:
     gov = ev_b.get("governing")
     if gov not in checks_b:
         return None, f"no extrapolation: the latest survey has no governing ratio ({gov})"
-    ca = next((c for c in _standard_checks(ev_a) if c["name"] == gov), None)
+    # the earlier survey's ratio of the same check, even where that check did not govern or apply there (e.g.
+    # B.3.2.1 below the R^2 rule): the ratio is measured the same way; the note says so
+    ca = next((c for c in ev_a.get("criteria", []) if c.get("name") == gov and c.get("ratio") is not None), None)
     if ca is None:
         return None, f"no extrapolation: the earlier survey has no ratio for {gov}"
     cb = checks_b[gov]
     sa, sb = _ratio_se(ca), _ratio_se(cb)
     if sa is None or sb is None:
         return None, f"no extrapolation: {gov} carries no uncertainty"
-    return extrapolate_ratio(gov, a.survey_date, ca["ratio"], sa, b.survey_date, cb["ratio"], sb), ""
+    note = ""
+    if ca.get("verdict") not in ("acceptable", "exceeds", "indeterminate"):
+        note = (f"the {a.survey_date} ratio of {gov} enters the extrapolation although that check was "
+                f"{ca.get('verdict')} in that survey")
+    return extrapolate_ratio(gov, a.survey_date, ca["ratio"], sa, b.survey_date, cb["ratio"], sb), note
 
 
 def tank_histories(out_dir, rows) -> tuple:

@@ -9,6 +9,8 @@ from __future__ import annotations
 import concurrent.futures
 import dataclasses
 import logging
+import math
+import os
 import threading
 import time
 from dataclasses import dataclass
@@ -17,20 +19,22 @@ from typing import Callable, Optional
 
 import numpy as np
 
-from ..config import ChimelineConfig, load_config
+from ..config import ChimelineConfig, ProfileConfig, config_hash, load_config
 from ..core.hashing import sha256_file, sha256_text
 from ..core.rng import Purpose, stream
-from ..errors import InputError, StageError
+from ..errors import ConfigError, InputError, StageError
 from ..evaluate.results import Evaluation
-from ..io.atomic import check_writable, staging_dir, write_files
-from ..io.pdf import html_to_pdf
+from ..io.atomic import OutputSlot, checkpoint
+from ..io.pdf import pdf_bytes
 from ..io.readers import expand_inputs, open_scans
+from ..io.runfiles import KIND_RUN, FolderInput, kind_guard, provenance_record, with_manifest
 from ..report.run_files import run_outputs
 from ..stages.frame import Frame, check_extent, make_frame, precision_warnings, tie_azimuth_zero
 from ..stages.geometry import FaceSampler, ShellGeometry, measure_geometry
+from ..stages.fusion import fuse_evidence
 from ..stages.junction import Junction, RingFilter, extract_junction
-from ..stages.noise import NoiseEstimate, attach_uncertainty, estimate_noise
-from ..stages.profile import Profile, bin_junction
+from ..stages.noise import NoiseEstimate, attach_uncertainty, estimate_noise, point_scale
+from ..stages.profile import Profile, bin_junction, reject_with_noise
 from ..stages.shell import ShellFit, fit_shell, refine_base
 from ..units import PINT_NAMES, parse_quantity
 from .evaluate import evaluate_run
@@ -134,6 +138,7 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
             face(sp, strided.source_id[fin_s] if strided.source_id is not None else np.zeros(len(sp), np.int64))
         plot_parts.append(sp[::every])
         progress("stream", n_read, src.n_points)
+        checkpoint("stream")
     counts["face_keep_fraction"] = round(ring_filter.face_keep_fraction, 6)
     counts["decoded_fraction"] = round(min(src.decoded / max(src.n_points, 1), 1.0), 6)
     counts["skipped"] = src.skipped_counts
@@ -164,36 +169,57 @@ def process_scan(scan, cfg: ChimelineConfig, resolved: dict, source: str,
     log.debug("junction: ring %d points, base at %.4f m local; refined shell radius %.4f m (first pass %.4f m)",
               junction.n_ring, junction.base_z, shell.radius, first_radius)
 
+    _check_bin_arc(cfg.profile, shell.radius)
     t = time.perf_counter()
     progress("profile", 0, None)
     profile = bin_junction(junction, cfg.profile, shell.radius)
     timings["profile"] = time.perf_counter() - t
+    t = time.perf_counter()
+    progress("noise", 0, None)
+    quantum = vertical_quantum(src, frame)
+    station_ids = len(np.unique(junction.station)) > 1
+    noise = estimate_noise(profile, junction, cfg.noise, cfg.profile.reject_k, quantum=quantum,
+                           station_ids=station_ids)
+    # reject again with the measured noise (mixed pixels widen the bins' own scatter), then measure again on
+    # what is kept: the station offsets and registration terms no longer see the contaminants
+    first = noise
+    for _ in range(2 if station_ids else 3):  # without ids the correlated error settles over the rounds
+        profile = reject_with_noise(profile, junction, point_scale(junction, noise), cfg.profile)
+        noise = estimate_noise(profile, junction, cfg.noise, cfg.profile.reject_k, quantum=quantum,
+                               station_ids=station_ids)
+    # the contamination is what the scatter-based rejection let through, measured before the noise-based one
+    noise = dataclasses.replace(noise, classical_sigma=first.classical_sigma,
+                                contamination=first.classical_sigma / noise.sigma if noise.sigma > 0 else float("nan"))
+    profile = attach_uncertainty(profile, junction, noise)
+    timings["noise"] = time.perf_counter() - t
+    t = time.perf_counter()
+    profile = fuse_evidence(profile, junction, noise, cfg.profile)
+    timings["fusion"] = time.perf_counter() - t
+    if profile.fusion is not None and profile.fusion.foot_disagreement > 0:
+        warnings.append(f"the projection top and the shell foot disagree by {profile.fusion.foot_disagreement * 1e3:.1f} "
+                        f"mm: returns off the plate (mixed pixels) may have moved the top, or the foot is hidden; the "
+                        f"disagreement is in every standard error")
     if profile.coverage < cfg.profile.min_coverage:
-        msg = (f"only {100 * profile.coverage:.1f} % of the circumference has ok bins, below profile.min_coverage = "
-               f"{cfg.profile.min_coverage}")
-        if cfg.profile.on_low_coverage == "refuse":
-            raise StageError(f"profile: {msg} (set profile.on_low_coverage: flag to keep the profile)")
+        msg, advice, no_tank = coverage_message(profile, junction, shell, cfg.profile)
+        if no_tank or cfg.profile.on_low_coverage == "refuse":
+            raise StageError(f"profile: {msg} ({advice})")
         warnings.append(msg)
         log.warning("profile: %s", msg)
     for g0, g1 in profile.gaps:
         warnings.append(f"no junction data from {g0:.1f} to {g1:.1f} deg (gap left empty)")
-
-    t = time.perf_counter()
-    progress("noise", 0, None)
-    noise = estimate_noise(profile, junction, cfg.noise, cfg.profile.reject_k)
-    profile = attach_uncertainty(profile, junction, noise)
-    timings["noise"] = time.perf_counter() - t
     log.info("profile: %d bins of %.3g deg, coverage %.1f %% ok, %d gap(s); %d of %d candidates rejected",
              len(profile.azimuth_deg), profile.bin_width_deg, 100 * profile.coverage, len(profile.gaps),
              int((~profile.kept).sum()), len(profile.kept))
-    log.info("noise: sigma %.3f mm [%.3f, %.3f] (within-bin); pairs %s; registration spread %.2f mm%s",
-             noise.sigma * 1e3, noise.ci[0] * 1e3, noise.ci[1] * 1e3,
-             f"{noise.pairs.sigma * 1e3:.3f} mm (F test p = {noise.agreement_p:.2g})" if noise.pairs else "none",
+    log.info("noise: sigma %.3f mm [%.3f, %.3f] (%s); within-bin %.3f mm; pairs %s; registration spread %.2f mm%s",
+             noise.sigma * 1e3, noise.ci[0] * 1e3, noise.ci[1] * 1e3, noise.adopted, noise.within_bin.sigma * 1e3,
+             (f"{noise.pairs.sigma * 1e3:.3f} mm" + (f" (F test p = {noise.agreement_p:.2g})" if noise.agreement_p is not None
+                                                         else "")) if noise.pairs else "none",
              noise.registration_sigma * 1e3, "" if profile.leveled else " (station levelling not done)")
     log.debug("noise: per station %s", "; ".join(
         f"{st.station}: {st.within_bin.sigma * 1e3:.3f} mm, offset {st.offset * 1e3:+.2f} mm"
         for st in noise.stations if st.within_bin is not None))
-    warnings += precision_warnings(src.coordinate_quantum, src.storage, frame, noise.sigma)
+    warnings += precision_warnings(src.coordinate_quantum, src.storage, frame, noise.sigma, storage_step=False)
+    warnings.extend(noise_warnings(noise, cfg.noise, profile))
     if not noise.agree:
         warnings.append(f"noise estimators disagree: within-bin {noise.within_bin.sigma * 1e3:.2f} mm, pairs "
                         f"{noise.pairs.sigma * 1e3:.2f} mm (F test p = {noise.agreement_p:.2g})")
@@ -264,43 +290,126 @@ def _hash_inputs(paths, stop: threading.Event) -> tuple[str, tuple]:
     return sha256_text("\n".join(each)), each
 
 
-def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_mapping: dict | None = None,
-             base_source: str = "") -> RunResult:
-    """Resolve the config, process the scan, evaluate when the config has tank data, write every output.
+def coverage_message(profile: Profile, junction: Junction, shell: ShellFit, cfg) -> tuple[str, str, bool]:
+    """(what is wrong, the keys that help, whether there is no tank base at all) for a profile below
+    ``profile.min_coverage``. Coverage advice is only given where a tank's base was found."""
+    p = profile
+    n = len(p.status)
+    seen = float((p.status != "empty").mean())
+    msg = (f"only {100 * p.coverage:.1f} % of the circumference has ok bins, below profile.min_coverage = "
+           f"{cfg.min_coverage}")
+    if seen < 0.5 * cfg.min_coverage:
+        return (f"junction evidence (projection top, shell foot or step face) in only {100 * seen:.1f} % of the "
+                f"circumference next to the cylinder of r = {shell.radius:.3f} m ({shell.n_inliers} inliers, "
+                f"{100 * shell.coverage:.0f} % of the circle): no tank base found",
+                "is this a scan of a tank? the shell stage's thresholds are shell.min_inliers and shell.min_coverage",
+                True)
+    k = {s: int((p.status == s).sum()) for s in ("sparse", "suspect", "empty")}
+    worst = max(k, key=k.get)
+    if worst == "sparse":
+        advice = (f"{k['sparse']} of {n} bins have a standard error above profile.max_std_error = "
+                  f"{cfg.max_std_error} m even at profile.max_bin_width_deg = {cfg.max_bin_width_deg}: raise either "
+                  f"for a thin or noisy scan, or set profile.on_low_coverage: flag to keep the profile")
+    elif worst == "suspect":
+        advice = (f"{k['suspect']} of {n} bins reject more than profile.max_reject_fraction = "
+                  f"{cfg.max_reject_fraction} of their points: check junction.radial_max and junction.height_gate "
+                  f"(projection width found: {_mm(junction.projection_width)}), or set profile.on_low_coverage: flag")
+    else:
+        advice = (f"{k['empty']} of {n} bins have no junction evidence (occlusions, or a projection outside "
+                  f"junction.radial_min - junction.radial_max; width found: {_mm(junction.projection_width)}); "
+                  f"set profile.on_low_coverage: flag to keep the profile with its gaps")
+    return msg, advice, False
 
-    ``base_mapping`` (a resolved config read back from a run folder) stands in for ``config_path``.
+
+def _mm(v) -> str:
+    return f"{v * 1e3:.0f} mm" if v else "none"
+
+
+def vertical_quantum(src, frame: Frame) -> float:
+    """The file's vertical coordinate resolution in m (0 when the reader does not know it)."""
+    q = getattr(src, "coordinate_quantum", None)
+    if q is None:
+        return 0.0
+    up = 2 if frame.up_axis == "z" else 1
+    return float(np.asarray(q, dtype=float)[up]) * frame.metres_per_unit
+
+
+def noise_warnings(noise: NoiseEstimate, cfg, profile: Profile) -> list:
+    """What the noise stage found that the reader of the results must know."""
+    out = []
+    if noise.station_ids and len(noise.stations) >= 2 and not profile.station_offset:
+        out.append("the stations share no bins: their relative vertical offsets (registration) cannot be measured "
+                   "and are not in the standard errors")
+    if noise.quantum > 0 and noise.quantum ** 2 / 12 > 0.1 * noise.sigma ** 2:
+        hidden = (f"; the noise itself is below what this resolution shows (under {noise.quantum / 4 * 1e3:.2g} mm)"
+                  if noise.sigma < noise.quantum / 4 else "")
+        out.append(f"the file's vertical resolution ({noise.quantum * 1e3:.3g} mm) is not small against the "
+                   f"noise ({noise.sigma * 1e3:.2f} mm): rounding (q^2/12 per point, and "
+                   f"{noise.quantization_bias_sigma * 1e3:.2f} mm per bin that averaging cannot remove) is in "
+                   f"the standard errors{hidden}; export the scan with a finer scale if you can")
+    if not noise.station_ids:
+        out.append(f"the scan carries no station ids: station levelling was not possible; the correlated "
+                   f"(registration) error estimated from the data, {noise.correlated_sigma * 1e3:.2f} mm, is in "
+                   f"every standard error")
+    if np.isfinite(noise.contamination) and noise.contamination > 1 + cfg.agreement_ratio:
+        out.append(f"mixed pixels: the plain within-bin scatter ({noise.classical_sigma * 1e3:.2f} mm) exceeds the "
+                   f"robust noise estimate ({noise.sigma * 1e3:.2f} mm) by {100 * (noise.contamination - 1):.0f} %; "
+                   f"the noise comes from the robust estimate")
+    return out
+
+
+def _check_bin_arc(pc: ProfileConfig, radius: float) -> None:
+    """profile.bin_arc_length gives bins of arc / radius; they must lie in bin_width_deg's range on this shell."""
+    if pc.bin_arc_length is None:
+        return
+    md = ProfileConfig.__dataclass_fields__["bin_width_deg"].metadata
+    width = math.degrees(pc.bin_arc_length / radius)
+    if not md["min"] <= width <= md["max"]:
+        raise ConfigError(f"'profile.bin_arc_length' = {pc.bin_arc_length:g} m gives bins of {width:.3g} deg on this "
+                          f"shell (radius {radius:.3f} m); choose an arc giving {md['min']}-{md['max']} deg")
+
+
+
+def run_scan(scan, out_dir, config_path=None, sets=(), progress=None, *, base_mapping: dict | None = None,
+             base_source: str = "", extra_inputs=()) -> RunResult:
+    """Resolve the config, process the scan, evaluate when the config has tank data, publish the run folder.
+
+    ``base_mapping`` (a resolved config read back from a run folder) stands in for ``config_path``. The folder is
+    locked before any work and swapped in as a whole at the end (``io.atomic.OutputSlot``): a failure leaves the
+    earlier folder as it was. ``extra_inputs`` (FolderInput) join the scan files in manifest.json.
     """
     cfg, resolved, source = load_config(config_path, sets, mapping=base_mapping, mapping_source=base_source)
-    out_dir = Path(out_dir)
-    check_writable(out_dir)
-    t0 = time.perf_counter()
-    paths = expand_inputs(scan if isinstance(scan, (list, tuple)) else [scan])
-    # the input is hashed on another thread while the scan streams (hashlib releases the GIL on large blocks)
-    stop = threading.Event()
-    with concurrent.futures.ThreadPoolExecutor(max_workers=1) as pool:
-        hashing = pool.submit(_hash_inputs, [p for p in paths if Path(p).is_file()], stop)
-        try:
-            res = process_scan(paths, cfg, resolved, source, progress)
-        except BaseException:
-            stop.set()  # a failed run does not wait for the hash
-            raise
+    paths = [Path(os.path.abspath(p)) for p in expand_inputs(scan if isinstance(scan, (list, tuple)) else [scan])]
+    with OutputSlot(out_dir, guard=kind_guard(KIND_RUN), inputs=paths) as slot:
+        t0 = time.perf_counter()
+        files_in = [p for p in paths if p.is_file()]
+        # the input is hashed on another thread while the scan streams (hashlib releases the GIL on large blocks)
+        stop = threading.Event()
+        with concurrent.futures.ThreadPoolExecutor(max_workers=1) as pool:
+            hashing = pool.submit(_hash_inputs, files_in, stop)
+            try:
+                res = process_scan(paths, cfg, resolved, source, progress)
+            except BaseException:
+                stop.set()  # a failed run does not wait for the hash
+                raise
+            t = time.perf_counter()
+            sha, sha_each = hashing.result()
+        timings = dict(res.timings)
+        timings["hash_wait"] = time.perf_counter() - t
         t = time.perf_counter()
-        sha, sha_each = hashing.result()
-    timings = dict(res.timings)
-    timings["hash_wait"] = time.perf_counter() - t
-    t = time.perf_counter()
-    if progress is not None:
-        progress("evaluate", 0, None)
-    ev = evaluate_run(res)
-    if ev is not None:
-        timings["evaluate"] = time.perf_counter() - t
-    timings["total"] = time.perf_counter() - t0
-    res = dataclasses.replace(res, input_sha256=sha, input_sha256_files=sha_each, evaluation=ev, timings=timings)
-    if progress is not None:
-        progress("report", 0, None)
-    files = run_outputs(res)
-    with staging_dir(out_dir) as stage:
-        write_files(stage, files)
+        if progress is not None:
+            progress("evaluate", 0, None)
+        ev = evaluate_run(res)
+        if ev is not None:
+            timings["evaluate"] = time.perf_counter() - t
+        res = dataclasses.replace(res, input_sha256=sha, input_sha256_files=sha_each, evaluation=ev, timings=timings)
+        if progress is not None:
+            progress("report", 0, None)
+        files = run_outputs(res)
         if cfg.output.pdf:
-            html_to_pdf(stage / "report.html", stage / "report.pdf")
+            files["report.pdf"] = pdf_bytes(files["report.html"])
+        timings["total"] = time.perf_counter() - t0
+        inputs = [FolderInput("scan", str(p), h) for p, h in zip(files_in, sha_each)] + list(extra_inputs)
+        slot.publish(with_manifest(files, KIND_RUN, inputs, config_hash(resolved),
+                                   provenance_record("run", timings, recovered=slot.recovered)))
     return res

@@ -10,7 +10,8 @@ from pathlib import Path
 import numpy as np
 
 from ..config import parse_set_pairs
-from ..io.atomic import write_files
+from ..errors import ConfigError, OutputError, clip_repr
+from ..io.atomic import check_writable, write_files
 from ..report.scanview import plot_scan
 from ..synth import SynthResult, load_scene, run_synth
 from ..synth.scanner import Simulator
@@ -19,6 +20,9 @@ from ..version import __version__
 from .run import RunResult, run_scan
 
 log = logging.getLogger(__name__)
+
+#: most points ``--points`` may ask for (a 1e9-point LAS file is about 30 GB)
+MAX_POINTS = 1e9
 
 
 def load_synth_scene(scene_file, sets=(), density=None, points=None, seed=None):
@@ -29,10 +33,17 @@ def load_synth_scene(scene_file, sets=(), density=None, points=None, seed=None):
         pairs.append(("density", density))
     scene = load_scene(scene_file, pairs)
     if points is not None:
+        if isinstance(points, bool) or not isinstance(points, (int, float)) or not 1e3 <= points <= MAX_POINTS:
+            raise ConfigError(f"--points must be a number of points in [1000, {MAX_POINTS:.0e}], got {clip_repr(points)}")
         # rays scale with density; hits per ray are nearly constant: calibrate on the ray count
         sim = Simulator(dataclasses.replace(scene, density=1.0))
         rays = sum(sim.ray_count(s) for s in sim.stations)
-        scene = dataclasses.replace(scene, density=max(points / (0.9 * rays), 1e-4))
+        density = points / (0.9 * rays)
+        md = type(scene).__dataclass_fields__["density"].metadata
+        if not md["min"] <= density <= md["max"]:
+            raise ConfigError(f"--points {points:.3g} needs a ray density of {density:.3g} for this scene, outside "
+                              f"[{md['min']}, {md['max']}]; ask for fewer or more points")
+        scene = dataclasses.replace(scene, density=density)
     return scene
 
 
@@ -41,6 +52,11 @@ def synthesize(scene_file, out_dir, sets=(), density=None, points=None, seed=Non
     """Simulate a scene into ``out_dir`` (scan, truth JSON and, unless ``no_plot``, a scan view PNG)."""
     progress = progress or (lambda *a: None)
     scene = load_synth_scene(scene_file, sets, density, points, seed)
+    check_writable(out_dir)
+    try:
+        Path(out_dir).mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{out_dir}: output folder cannot be created: {exc.strerror or exc}") from None
     sim = Simulator(scene)
     total = sum(sim.ray_count(s) for s in sim.stations)
     done = [0]
@@ -50,7 +66,10 @@ def synthesize(scene_file, out_dir, sets=(), density=None, points=None, seed=Non
         progress("synth", done[0], total)
 
     log.info("synth: %s, seed %d, about %.2f M rays", scene.name, scene.seed, total / 1e6)
-    res = run_synth(scene, out_dir, name=name, progress=cb, software=f"chimeline {__version__}")
+    try:
+        res = run_synth(scene, out_dir, name=name, progress=cb, software=f"chimeline {__version__}")
+    except OSError as exc:  # disk full, a read-only folder: the partial scan was removed by the writer
+        raise OutputError(f"{out_dir}: cannot write the simulated scan: {exc.strerror or exc}") from None
     log.info("synth: wrote %s (%d points, %.1f s) and %s", res.scan_path, res.n_points, res.seconds, res.truth_path)
     if not no_plot:
         f = to_metres(scene.output.units)
