@@ -55,7 +55,7 @@ def first_batch(fleet):
     manifest, _, _, d = fleet
     out = d / "out"
     seen = []
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster, \
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster, \
             Client(cluster) as client:
         first = run_batch(manifest, out, client=client, on_job=lambda oc, n, t: seen.append((oc.status, n, t)))
         snapshot = {name: (out / name).read_text() for name in ("fleet.csv", "fleet.json", "index.html")}
@@ -63,8 +63,9 @@ def first_batch(fleet):
     return first, second, seen, out, snapshot
 
 
-def test_fleet_rows_statuses_and_the_one_line_error(first_batch):
+def test_fleet_rows_statuses_and_the_one_line_error(fleet, first_batch):
     first, _, seen, out, snap = first_batch
+    d = fleet[3]
     assert [o.status for o in first.outcomes] == ["done", "done", "failed"]
     assert first.exit_code == 3
     assert sorted(n for _, n, _ in seen) == [1, 2, 3] and {t for _, _, t in seen} == {3}
@@ -73,6 +74,13 @@ def test_fleet_rows_statuses_and_the_one_line_error(first_batch):
         ("GM-TK-02", "2023-05-10", "done"), ("GM-TK-02", "2025-05-12", "done"), ("GM-TK-09", "2025-05-12", "failed")]
     err = rows[2]["error"]
     assert "broken.las" in err and "\n" not in err and "Traceback" not in err
+    # the same line `chimeline run` prints for that scan (issue 12's funnel), without its "chimeline: error: "
+    from click.testing import CliRunner
+
+    from chimeline.cli import cli
+
+    r = CliRunner().invoke(cli, ["run", str(d / "scans" / "broken.las"), "--out", str(d / "direct")])
+    assert r.exit_code == 2 and cli_output(r).strip() == f"chimeline: error: {err}"
     assert rows[2]["verdict"] == "" and rows[2]["report"] == ""
     good = rows[1]
     assert good["verdict"] in ("acceptable", "indeterminate", "exceeds") and float(good["noise_sigma_m"]) > 0

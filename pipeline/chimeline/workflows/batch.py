@@ -190,7 +190,7 @@ def dask_client(workers: Optional[int] = None, memory_limit="auto", scheduler: O
         return
     n = workers or _cores()
     cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, memory_limit=memory_limit,
-                           dashboard_address=None, silence_logs=logging.ERROR)
+                           dashboard_address=":0", silence_logs=logging.ERROR)
     try:
         c = Client(cluster, set_as_default=False)
         try:
