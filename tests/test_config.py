@@ -18,8 +18,21 @@ def test_embedded_default_matches_schema_and_copy():
 
 
 def test_example_configs_validate():
+    """Every example in configs/ is valid: configs through the schema, batch manifests (a ``jobs`` list) through
+    the manifest parser and each job's config."""
+    import yaml
+
+    from chimeline.io.batch_manifest import read_batch_manifest
+    from chimeline.workflows.batch import check_jobs
+
+    manifests = 0
     for p in sorted((ROOT / "configs").glob("*.yaml")):
-        load_config(p)
+        if "jobs" in (yaml.safe_load(p.read_text()) or {}):
+            check_jobs(read_batch_manifest(p).jobs)
+            manifests += 1
+        else:
+            load_config(p)
+    assert manifests >= 1  # configs/fleet_demo.yaml
 
 
 BAD_VALUES = [

@@ -25,6 +25,13 @@ def clip_repr(value, limit: int = 80) -> str:
     return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
+def one_line(text, limit: int = 600) -> str:
+    """A message as the one line the command line prints: whitespace runs collapsed, at most ``limit`` characters
+    (the CLI's error funnel and the failed jobs of a batch use the same form)."""
+    text = " ".join(str(text).split())
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
 class ChimelineError(Exception):
     """Base of every error chimeline reports to the user."""
 

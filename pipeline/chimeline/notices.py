@@ -21,3 +21,10 @@ GEOMETRY_TOLERANCES = ("The shell geometry tolerances are the standard's constru
                        "edition. They are used for assessment at the engineer's discretion and never set the settlement "
                        "verdict. Out-of-plumbness rests on the scan's vertical reference (scanner levelling and "
                        "registration); roundness does not.")
+
+#: Said in a settlement history when a scan's stations share no azimuth bins (their registration cannot be measured).
+UNOBSERVED_REGISTRATION = ("the scanner stations of the {scans} share no azimuth bins, so the registration error "
+                           "between them cannot be measured and is not in these uncertainties: the uniform change "
+                           "and the per-azimuth differences may be off by the stations' registration error (typically "
+                           "1-3 mm) more than their standard errors say; the out-of-plane change within one station's "
+                           "arc is not affected")

@@ -1,8 +1,8 @@
 """Command line: arguments, logging, exit codes; the only place that prints.
 
-Exit codes: 0 success; 2 bad usage, bad input or any chimeline error; 1 a bug; 130 interrupted. A failing command
-prints exactly one line on stderr at default verbosity (``cli.common.ChimelineGroup``). Workflows are imported
-lazily, so ``chimeline --help`` costs only click.
+Exit codes: 0 success; 2 bad usage, bad input or any chimeline error; 1 a bug; 130 interrupted; 3 a batch that
+ran but some of its jobs failed. A failing command prints exactly one line on stderr at default verbosity
+(``cli.common.ChimelineGroup``). Workflows are imported lazily, so ``chimeline --help`` costs only click.
 """
 from __future__ import annotations
 
@@ -10,6 +10,7 @@ import click
 
 from ..notices import CAUTION
 from ..version import __version__
+from .batch import batch
 from .common import ChimelineGroup, native_output_to_log, setup_logging
 from .compare import compare
 from .demo import demo
@@ -30,8 +31,9 @@ Typical use:
   chimeline evaluate PROFILE.csv --out DIR   settlement evaluation of a profile or survey
   chimeline compare RUN_A RUN_B --out DIR    QA: noise and profile of two runs
   chimeline rerun RUN --set KEY=VALUE --out DIR   run again with changes
+  chimeline batch MANIFEST --out DIR     a fleet of scans on a Dask cluster
 
-Exit codes: 0 success, 2 bad usage or input (one line on stderr), 1 a bug.
+Exit codes: 0 success, 2 bad usage or input (one line on stderr), 1 a bug; batch: 3 when some jobs failed.
 
 Caution: {CAUTION}
 """)
@@ -46,7 +48,7 @@ def cli(ctx, verbose, quiet):
     ctx.obj = {"quiet": quiet}
 
 
-for _command in (demo, synth, run, evaluate, compare, rerun):
+for _command in (demo, synth, run, evaluate, compare, rerun, batch):
     cli.add_command(_command)
 
 

@@ -28,7 +28,7 @@ import click
 
 from ..config import parse_set_pairs
 from ..core.native import captured_native_output
-from ..errors import ChimelineError, OutputError, clip_repr
+from ..errors import ChimelineError, OutputError, clip_repr, one_line
 from ..io.atomic import check_target
 
 EXIT_ERROR = 2  # bad usage, bad input or any chimeline error; click's usage errors use the same code
@@ -211,11 +211,6 @@ def reported(progress: Progress | None = None):
 # the error funnel
 
 
-def _one_line(text: str, limit: int = 600) -> str:
-    text = " ".join(str(text).split())
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
 class ChimelineGroup(click.Group):
     """click group whose ``main`` is the single error funnel (see the module docstring)."""
 
@@ -232,17 +227,17 @@ class ChimelineGroup(click.Group):
             ctx = getattr(exc, "ctx", None)
             if isinstance(exc, click.UsageError) and ctx is not None:
                 hint = f" (see '{ctx.command_path} --help')"
-            self._fail(f"chimeline: error: {_one_line(exc.format_message())}{hint}", exc.exit_code)
+            self._fail(f"chimeline: error: {one_line(exc.format_message())}{hint}", exc.exit_code)
         except click.Abort:
             self._fail("chimeline: error: interrupted", EXIT_INTERRUPTED)
         except ChimelineError as exc:
-            self._fail(f"chimeline: error: {_one_line(exc)}", EXIT_ERROR)
+            self._fail(f"chimeline: error: {one_line(exc)}", EXIT_ERROR)
         except MemoryError:
             self._fail("chimeline: error: out of memory; try a smaller input.chunk_size or shell.sample_points",
                        EXIT_BUG)
         except Exception as exc:
             log.debug("internal error", exc_info=True)
-            self._fail(f"chimeline: internal error: {type(exc).__name__}: {_one_line(exc, 300)} (a bug: please report "
+            self._fail(f"chimeline: internal error: {type(exc).__name__}: {one_line(exc, 300)} (a bug: please report "
                        f"it; -v shows the traceback)", EXIT_BUG)
         if _CONSOLE is not None:
             _CONSOLE.flush_held()

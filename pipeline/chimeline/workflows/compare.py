@@ -97,6 +97,31 @@ def load_run(run_dir) -> dict:
     return out
 
 
+def profile_change(base: dict, r: dict) -> tuple[bool, dict]:
+    """(same tank, profile difference of run ``r`` minus run ``base``) of two ``load_run`` mappings; with survey
+    dates on both, the rate per year of the mean difference. Runs are the same tank when their shell centres lie
+    within 0.5 m and their radii within 0.05 m (so both scans are in one coordinate frame)."""
+    same_tank = (math.hypot(r["center"][0] - base["center"][0], r["center"][1] - base["center"][1])
+                 * to_metres(r["units"]) < 0.5 and abs(r["radius"] - base["radius"]) < 0.05)
+    if same_tank:
+        pd = profile_difference(base["az"], base["el"], base["se"], base["ok"], base["datum_sigma"],
+                                r["az"], r["el"], r["se"], r["ok"], r["datum_sigma"])
+    else:
+        pd = {"n_common": 0, "note": "different tanks: profiles not compared"}
+    if same_tank and base["date"] and r["date"] and "mean_difference" in pd:
+        try:
+            dt = (datetime.date.fromisoformat(r["date"]) - datetime.date.fromisoformat(base["date"])).days / 365.25
+            if dt != 0:
+                pd["years"] = dt
+                pd["rate_per_year"] = pd["mean_difference"] / dt
+                pd["rate_per_year_se"] = pd["mean_difference_se"] / abs(dt)
+        except ValueError:
+            pass
+    if "consistency_p" in pd:
+        pd["consistency_note"] = CONSISTENCY_NOTE
+    return same_tank, pd
+
+
 def compare_runs(dirs, alpha=0.05, margin=0.1) -> dict:
     md = EvaluateConfig.__dataclass_fields__["alpha"].metadata
     if isinstance(alpha, bool) or not isinstance(alpha, (int, float)) or not md["min"] <= alpha <= md["max"]:
@@ -129,24 +154,7 @@ def compare_runs(dirs, alpha=0.05, margin=0.1) -> dict:
                                                                       by_id[x["station"]]["dof"], x["sigma"], x["dof"]))
                           for x in r["stations"] if x["sigma"] and x["station"] in by_id and x["dof"] and
                           by_id[x["station"]]["dof"]]
-        same_tank = (math.hypot(r["center"][0] - base["center"][0], r["center"][1] - base["center"][1])
-                     * to_metres(r["units"]) < 0.5 and abs(r["radius"] - base["radius"]) < 0.05)
-        if same_tank:
-            pd = profile_difference(base["az"], base["el"], base["se"], base["ok"], base["datum_sigma"],
-                                    r["az"], r["el"], r["se"], r["ok"], r["datum_sigma"])
-        else:
-            pd = {"n_common": 0, "note": "different tanks: profiles not compared"}
-        if same_tank and base["date"] and r["date"] and "mean_difference" in pd:
-            try:
-                dt = (datetime.date.fromisoformat(r["date"]) - datetime.date.fromisoformat(base["date"])).days / 365.25
-                if dt != 0:
-                    pd["years"] = dt
-                    pd["rate_per_year"] = pd["mean_difference"] / dt
-                    pd["rate_per_year_se"] = pd["mean_difference_se"] / abs(dt)
-            except ValueError:
-                pass
-        if "consistency_p" in pd:
-            pd["consistency_note"] = CONSISTENCY_NOTE
+        same_tank, pd = profile_change(base, r)
         pairs.append({"reference": base["dir"], "run": r["dir"], "noise": vr, "profile": pd, "same_tank": same_tank})
     return {"runs": runs, "pairs": pairs, "alpha": alpha, "margin": margin}
 
