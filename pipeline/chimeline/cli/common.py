@@ -30,6 +30,8 @@ from ..config import parse_set_pairs
 from ..core.native import captured_native_output
 from ..errors import ChimelineError, OutputError, clip_repr, one_line
 from ..io.atomic import check_target
+from ..notices import CAUTION
+from ..report.console import verdict_lines
 
 EXIT_ERROR = 2  # bad usage, bad input or any chimeline error; click's usage errors use the same code
 EXIT_BUG = 1  # an unexpected exception: a bug to report
@@ -112,6 +114,17 @@ def setup_logging(verbose: int, quiet: bool) -> ConsoleLog:
         logging.getLogger(noisy).setLevel(logging.INFO if verbose > 1 else logging.WARNING)
     logging.captureWarnings(True)
     return _CONSOLE
+
+
+def result_tail(res) -> None:
+    """The end of a run's console summary: the verdict in three lines (with tank data), the run's and the
+    evaluation's warnings, the caution."""
+    if res.evaluation is not None:
+        for line in verdict_lines(res.evaluation, res.out_units):
+            click.echo(line)
+    for w in dict.fromkeys(list(res.warnings) + list(res.evaluation.warnings if res.evaluation else [])):
+        warn(w)
+    click.echo(f"Caution: {CAUTION}")
 
 
 def warn(text: str) -> None:

@@ -6,9 +6,7 @@ from pathlib import Path
 import click
 
 from ..core.lazy import lazy_import
-from ..notices import CAUTION
-from ..report.console import verdict_lines
-from .common import Progress, reported, warn
+from .common import Progress, reported, result_tail
 
 synth_wf = lazy_import("chimeline.workflows.synth")
 
@@ -43,9 +41,4 @@ def demo(ctx, work_dir, regenerate):
     n = res.noise
     click.echo(f"noise sigma {n.sigma * 1e3:.2f} mm (95 % CI {n.ci[0] * 1e3:.2f}-{n.ci[1] * 1e3:.2f}), "
                f"coverage {100 * res.profile.coverage:.1f} %, shell radius at the base {res.shell.radius:.4f} m")
-    if res.evaluation is not None:
-        for line in verdict_lines(res.evaluation, res.out_units):
-            click.echo(line)
-    for w in dict.fromkeys(list(res.warnings) + list(res.evaluation.warnings if res.evaluation else [])):
-        warn(w)
-    click.echo(f"Caution: {CAUTION}")
+    result_tail(res)

@@ -6,9 +6,7 @@ from pathlib import Path
 import click
 
 from ..core.lazy import lazy_import
-from ..notices import CAUTION
-from ..report.console import verdict_lines
-from .common import Progress, config_option, out_option, reported, set_option, set_pairs, warn
+from .common import Progress, config_option, out_option, reported, result_tail, set_option, set_pairs
 
 run_wf = lazy_import("chimeline.workflows.run")
 
@@ -47,9 +45,4 @@ def run(ctx, scan, config_path, sets, out_dir, pdf):
     n = res.noise
     click.echo(f"wrote {out_dir}/profile.csv ({len(res.profile.azimuth_deg)} bins, {100 * res.profile.coverage:.1f} % ok); "
                f"noise sigma {n.sigma * 1e3:.2f} mm [{n.ci[0] * 1e3:.2f}, {n.ci[1] * 1e3:.2f}]")
-    if res.evaluation is not None:
-        for line in verdict_lines(res.evaluation, res.out_units):
-            click.echo(line)
-    for w in dict.fromkeys(list(res.warnings) + list(res.evaluation.warnings if res.evaluation else [])):
-        warn(w)
-    click.echo(f"Caution: {CAUTION}")
+    result_tail(res)
