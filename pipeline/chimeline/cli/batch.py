@@ -8,6 +8,7 @@ import click
 
 from ..core.lazy import lazy_import
 from ..notices import CAUTION
+from ..report.console import month_text
 from .common import OutFolder, Progress, reported
 
 batch_wf = lazy_import("chimeline.workflows.batch")
@@ -85,8 +86,8 @@ def batch(ctx, manifest, out_dir, workers, memory_limit, scheduler, retries, for
         ex = next((iv.extrapolation for iv in h.intervals if iv.extrapolation is not None), None)
         text = f"history {h.tag}: {len(h.surveys)} surveys"
         if ex is not None and ex.status == "extrapolated":
-            text += (f"; {ex.check} ratio would reach 1 around {ex.date} at the current rate (linear extrapolation, "
-                     f"95 % interval {ex.date_ci95[0]} to {ex.date_ci95[1]}"
+            text += (f"; {ex.check} ratio would reach 1 around {month_text(ex.date)} at the current rate (linear "
+                     f"extrapolation, 95 % interval {month_text(ex.date_ci95[0])} to {month_text(ex.date_ci95[1])}"
                      + ("; ILLUSTRATIVE arc table: demonstration only" if h.surveys[-1].illustrative
                         and "B.3.2.2" in ex.check else "") + ")")
         elif ex is not None:

@@ -60,3 +60,8 @@ def r2_rule_text(ev) -> str:
     return (f"R^2 = {t.r_squared:.3f} < {r2min}: the standard does not accept the cosine fit for its deflection check "
             f"(B.3.2.1 shown for information); the tilt is judged by the {t.decided_by} and the settled-arc check "
             f"(B.3.2.2) applies")
+
+
+def month_text(iso) -> str:
+    """An extrapolated ISO date for people: to the month (a linear extrapolation of two surveys is no more)."""
+    return iso[:7] if isinstance(iso, str) and len(iso) >= 7 else str(iso)

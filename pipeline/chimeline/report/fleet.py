@@ -12,7 +12,7 @@ from ..core.robust import Z95
 from ..io.atomic import json_text
 from ..notices import CAUTION, ILLUSTRATIVE_TABLE, VERTICAL_REFERENCE
 from ..version import __version__
-from .console import p_text
+from .console import month_text, p_text
 from .html import png_data_uri, template_env
 from .mpl import BAND, INK, MEASURED, MUTED, new_figure, png_bytes
 
@@ -252,8 +252,8 @@ def _interval_view(iv, illustrative: bool = False) -> dict:
         rate = f"{ex.rate_per_year:+.4f} ± {ex.rate_se:.4f} per year"
         if ex.status == "extrapolated":
             text = (f"Linear extrapolation: at the current rate ({ex.check}: ratio {ex.ratio_from:.3f} -> "
-                    f"{ex.ratio_to:.3f}, {rate}) the ratio would reach 1 around {ex.date} (95 % interval "
-                    f"{ex.date_ci95[0]} to {ex.date_ci95[1]}, Fieller; {ex.years_to_limit:.1f} years after the "
+                    f"{ex.ratio_to:.3f}, {rate}) the ratio would reach 1 around {month_text(ex.date)} (95 % "
+                    f"interval {month_text(ex.date_ci95[0])} to {month_text(ex.date_ci95[1])}, Fieller; {ex.years_to_limit:.1f} years after the "
                     f"latest survey).")
         elif ex.status == "reached":
             text = f"{ex.check}: the ratio {ex.ratio_to:.3f} of the latest survey is already at or above 1."
