@@ -128,7 +128,8 @@ def read_survey(path, cfg) -> SurveyData:
                 raise InputError(f"{path}: row {i}: azimuth_deg {a} is outside [0, 360)")
             az.append(a)
             z.append(e * f)
-            label.append(_text(r, cols, "label", path, i) if "label" in cols else str(i - 1))
+            # a dense profile's bins are named by their azimuth, as in the run's own evaluation
+            label.append(_text(r, cols, "label", path, i) if "label" in cols else f"{a:.2f}" if dense else str(i - 1))
             if "std_error" in cols:
                 s = _float(r[cols["std_error"]], path, i, "std_error", allow_empty=True)
                 if math.isfinite(s) and s <= 0:
