@@ -339,3 +339,20 @@ def test_a_folder_nobody_may_write_into_is_refused_with_nothing_left(tmp_path):
         assert list(ro.iterdir()) == []
     finally:
         make_immutable(ro, on=False)
+
+
+def test_a_parent_made_meanwhile_by_a_sibling_job_is_not_an_error(tmp_path, monkeypatch):
+    # two batch jobs publish tag/date1 and tag/date2 at once: both see tag/ missing, the other one makes it first
+    parent = tmp_path / "fleet" / "TK-1"
+    real_mkdir = Path.mkdir
+
+    def racing_mkdir(self, *a, **kw):
+        if self == parent and not self.exists():
+            real_mkdir(self)  # the sibling job wins the race
+        return real_mkdir(self, *a, **kw)
+
+    monkeypatch.setattr(Path, "mkdir", racing_mkdir)
+    with OutputSlot(parent / "2026-06-15", guard=kind_guard(KIND_RUN)) as slot:
+        assert slot._created == [tmp_path / "fleet"]  # TK-1 is the sibling's: a failure here must not remove it
+        slot.publish(with_manifest({"a.txt": "x"}, KIND_RUN, [], "0" * 64, {}))
+    assert (parent / "2026-06-15" / "a.txt").read_text() == "x"

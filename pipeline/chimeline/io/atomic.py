@@ -328,7 +328,12 @@ def _make_parents(folder: Path) -> list[Path]:
         p = p.parent
     created = []
     for q in reversed(missing):
-        q.mkdir()
+        try:
+            q.mkdir()
+        except FileExistsError:
+            if not q.is_dir():
+                raise
+            continue  # another command (a batch job into a sibling folder) made it meanwhile: not ours to remove
         created.append(q)
     return created
 
