@@ -99,6 +99,13 @@ class Criterion:
         return self.clause is None
 
     @property
+    def shown(self) -> str:
+        """The verdict in words: a screening flag is raised or clear (it informs, it never "exceeds")."""
+        if self.clause is not None:
+            return self.verdict
+        return {"exceeds": "raised", "acceptable": "clear"}.get(self.verdict, self.verdict)
+
+    @property
     def decides(self) -> bool:
         """Takes part in the overall verdict."""
         return self.clause is not None and self.verdict in ("acceptable", "exceeds", "indeterminate")

@@ -42,12 +42,7 @@ def verdict_lines(ev, units: str) -> list[str]:
               f"{t.decided_by})")
     flags = []
     for c in scr:
-        if c.verdict == "exceeds":
-            flags.append(f"{c.name}: RAISED, {c.governing}")
-        elif c.verdict in ("not assessed", "not applicable", "indeterminate"):
-            flags.append(f"{c.name}: {c.verdict}")
-        else:
-            flags.append(f"{c.name}: clear")
+        flags.append(f"{c.name}: RAISED, {c.governing}" if c.verdict == "exceeds" else f"{c.name}: {c.shown}")
     third = "screening (informs, never decides): " + "; ".join(flags)
     return [first, second, third]
 

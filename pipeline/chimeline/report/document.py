@@ -59,12 +59,8 @@ def _ranges(rr, limit=8):
     return s + (f" (+{len(rr) - limit} more)" if len(rr) > limit else "")
 
 
-SCREENING_WORDS = {"exceeds": "raised", "acceptable": "clear"}  # a flag informs: it is raised, never "exceeds"
-
-
 def _criterion_row(c):
-    shown = c.verdict if c.clause else SCREENING_WORDS.get(c.verdict, c.verdict)
-    return {"name": c.name, "clause": c.clause or "screening", "verdict": shown, "ratio": _num(c.ratio),
+    return {"name": c.name, "clause": c.clause or "screening", "verdict": c.shown, "ratio": _num(c.ratio),
             "upper": _num(c.ratio_upper95), "uncertainty": c.uncertainty or c.governing, "governing": c.governing,
             "where": _ranges(c.azimuth_ranges) if c.azimuth_ranges else
             ("-" if c.at_deg is None else f"largest at {c.at_deg:.1f}"), "notes": list(c.reasons),

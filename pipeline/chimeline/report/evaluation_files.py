@@ -15,28 +15,15 @@ from ..io.runfiles import CONFIG_YAML, EVALUATION_JSON
 from ..notices import CAUTION
 from ..units import UNIT_LABELS, to_metres
 from ..version import __version__
+from .cells import csv_cell, json_num
 from .console import r2_rule_text
 from .html import evaluation_figures, render_report
-
-
-def _n(v):
-    """A float at full precision for JSON, None where not finite."""
-    if v is None:
-        return None
-    v = float(v)
-    return v if np.isfinite(v) else None
-
-
-def _c(v) -> str:
-    """A float at full precision for CSV ('' where not finite)."""
-    v = float(v)
-    return repr(v) if np.isfinite(v) else ""
 
 
 def _test(t):
     if t is None:
         return None
-    return {"name": t.name, "statistic": _n(t.statistic), "p_value": _n(t.p_value), "df": list(t.df),
+    return {"name": t.name, "statistic": json_num(t.statistic), "p_value": json_num(t.p_value), "df": list(t.df),
             "reject_null": t.reject}
 
 
@@ -46,28 +33,28 @@ def _criterion(c) -> dict:
         d["clause"] = c.clause
     else:
         d["screening"] = True  # informs, never sets the overall verdict: its "exceeds" is read as the flag raised
-        d["flag"] = {"exceeds": "raised", "acceptable": "clear"}.get(c.verdict, c.verdict)
-    d.update({"verdict": c.verdict, "ratio": _n(c.ratio), "ratio_upper95": _n(c.ratio_upper95),
-              "ratio_lower95": _n(c.ratio_lower95), "uncertainty": c.uncertainty, "governing": c.governing,
-              "azimuth_ranges_deg": [[_n(a), _n(b)] for a, b in c.azimuth_ranges],
-              "evidence_coverage": _n(c.evidence_coverage), "largest_ratio_at_deg": _n(c.at_deg),
+        d["flag"] = c.shown
+    d.update({"verdict": c.verdict, "ratio": json_num(c.ratio), "ratio_upper95": json_num(c.ratio_upper95),
+              "ratio_lower95": json_num(c.ratio_lower95), "uncertainty": c.uncertainty, "governing": c.governing,
+              "azimuth_ranges_deg": [[json_num(a), json_num(b)] for a, b in c.azimuth_ranges],
+              "evidence_coverage": json_num(c.evidence_coverage), "largest_ratio_at_deg": json_num(c.at_deg),
               "notes": list(c.reasons)})
     return d
 
 
 def evaluation_summary(ev, units) -> dict:
     f = to_metres(units)
-    L = lambda v: _n(np.asarray(v) / f)  # noqa: E731
+    L = lambda v: json_num(np.asarray(v) / f)  # noqa: E731
     t, F, s = ev.tilt, ev.fourier, ev.survey
     d = ev.deflection
     pts = []
     cs = ev.curvature_sparse
     for i in range(len(s.azimuth_deg)):
-        row = {"azimuth_deg": _n(s.azimuth_deg[i]), "label": s.label[i], "elevation": L(s.elevation[i]),
+        row = {"azimuth_deg": json_num(s.azimuth_deg[i]), "label": s.label[i], "elevation": L(s.elevation[i]),
                "out_of_plane": L(ev.out_of_plane[i]), "deflection": L(d.S[i]),
-               "deflection_sd": L(d.S_sd[i]), "allowable": L(d.allowable[i]), "ratio": _n(d.ratio[i])}
+               "deflection_sd": L(d.S_sd[i]), "allowable": L(d.allowable[i]), "ratio": json_num(d.ratio[i])}
         if cs is not None:  # second-difference curvature at the survey points, per unit length
-            row["curvature_second_difference"] = _n(cs.kappa[i] * f)
+            row["curvature_second_difference"] = json_num(cs.kappa[i] * f)
         pts.append(row)
     tk = ev.tank
     c = ev.curvature
@@ -86,12 +73,12 @@ def evaluation_summary(ev, units) -> dict:
         "criteria": [_criterion(x) for x in ev.criteria],
         "input": {"source": s.source, "dense": s.dense, "n_points": len(s.azimuth_deg), "bins_without_value": s.n_dropped},
         "tank": {"diameter": L(tk.diameter), "diameter_source": tk.diameter_source, "shell_height": L(tk.shell_height),
-                 "yield_strength_MPa": _n(tk.yield_strength / 1e6), "youngs_modulus_GPa": _n(tk.youngs_modulus / 1e9),
+                 "yield_strength_MPa": json_num(tk.yield_strength / 1e6), "youngs_modulus_GPa": json_num(tk.youngs_modulus / 1e9),
                  "roof": tk.roof},
-        "tilt": {"r_squared": _n(t.r_squared), "r2_min": ev.settings.r2_min, "r2_rule_met": t.r2_rule_met,
-                 "r2_rule": r2_rule_text(ev), "p_value": _n(t.p_value), "decided_by": t.decided_by,
+        "tilt": {"r_squared": json_num(t.r_squared), "r2_min": ev.settings.r2_min, "r2_rule_met": t.r2_rule_met,
+                 "r2_rule": r2_rule_text(ev), "p_value": json_num(t.p_value), "decided_by": t.decided_by,
                  "significant": t.significant, "cosine_f_test": _test(t.f_test),
-                 "amplitude": L(t.amplitude), "low_azimuth_deg": _n(t.low_azimuth_deg),
+                 "amplitude": L(t.amplitude), "low_azimuth_deg": json_num(t.low_azimuth_deg),
                  "coefficients": {"a": L(t.a), "b_cos": L(t.b), "c_sin": L(t.c)},
                  "note": "R^2 is what the standard asks; the p-value says whether a tilt plane is statistically real"},
         "modes": {"order": F.order, "selection": F.selection, "weighted": F.weighted, "max_order_allowed": F.max_order_allowed,
@@ -101,28 +88,28 @@ def evaluation_summary(ev, units) -> dict:
                   "tilt_partial_f": _test(F.tilt_partial_f), "tilt_chi2_vs_noise": _test(F.tilt_chi2),
                   "df_resid": F.df_resid},
         "out_of_plane_reference": ev.out_of_plane_reference,
-        "curvature": {"assessed": c.assessed, "limit_per_m": _n(c.limit), "smoothing_m": _n(c.smoothing),
-                      "max_abs_per_m": _n(np.nanmax(np.abs(c.kappa))) if fin.any() else None,
-                      "max_ratio": _n(np.nanmax(np.abs(c.kappa)) / c.limit) if fin.any() else None,
-                      "q_pointwise": _n(c.q_pointwise), "q_simultaneous": _n(c.q_simultaneous),
-                      "curve": {"azimuth_deg": [_n(v) for v in c.azimuth_deg],
-                                "kappa_per_m": [_n(v) for v in c.kappa],
-                                "kappa_sd_per_m": [_n(v) for v in c.kappa_sd],
-                                "pointwise95_per_m": [[_n(a), _n(b)] for a, b in zip(lo_pw, hi_pw)],
-                                "simultaneous95_per_m": [[_n(a), _n(b)] for a, b in zip(lo_s, hi_s)]}},
+        "curvature": {"assessed": c.assessed, "limit_per_m": json_num(c.limit), "smoothing_m": json_num(c.smoothing),
+                      "max_abs_per_m": json_num(np.nanmax(np.abs(c.kappa))) if fin.any() else None,
+                      "max_ratio": json_num(np.nanmax(np.abs(c.kappa)) / c.limit) if fin.any() else None,
+                      "q_pointwise": json_num(c.q_pointwise), "q_simultaneous": json_num(c.q_simultaneous),
+                      "curve": {"azimuth_deg": [json_num(v) for v in c.azimuth_deg],
+                                "kappa_per_m": [json_num(v) for v in c.kappa],
+                                "kappa_sd_per_m": [json_num(v) for v in c.kappa_sd],
+                                "pointwise95_per_m": [[json_num(a), json_num(b)] for a, b in zip(lo_pw, hi_pw)],
+                                "simultaneous95_per_m": [[json_num(a), json_num(b)] for a, b in zip(lo_s, hi_s)]}},
         "model": {"note": "out-of-plane modes k >= 2 of the Fourier model on the evaluation grid, with 1 sigma",
-                  "azimuth_deg": [_n(v) for v in ev.model.azimuth_deg], "out_of_plane": [L(v) for v in ev.model.value],
+                  "azimuth_deg": [json_num(v) for v in ev.model.azimuth_deg], "out_of_plane": [L(v) for v in ev.model.value],
                   "sd": [L(v) for v in ev.model.sd]},
         "arcs": [_arc(a, f) for a in ev.arcs],
         "arc_table": {"title": ev.arc_table.title, "source": ev.arc_table.source,
                       "illustrative": ev.arc_table.illustrative},
-        "dips": [{"start_deg": _n(x.start_deg), "end_deg": _n(x.end_deg), "length": L(x.length), "depth": L(x.depth),
-                  "deepest_deg": _n(x.deepest_deg), "depth_sd": L(x.depth_sd), "threshold": L(x.threshold),
-                  "allowable": L(x.allowable), "ratio": _n(x.ratio)} for x in ev.dips],
+        "dips": [{"start_deg": json_num(x.start_deg), "end_deg": json_num(x.end_deg), "length": L(x.length), "depth": L(x.depth),
+                  "deepest_deg": json_num(x.deepest_deg), "depth_sd": L(x.depth_sd), "threshold": L(x.threshold),
+                  "allowable": L(x.allowable), "ratio": json_num(x.ratio)} for x in ev.dips],
         "points": pts,
         "survey_adequacy": list(ev.adequacy),
         "warnings": list(ev.warnings),
-        "settings": {k: (_n(v) if isinstance(v, float) else v) for k, v in asdict(ev.settings).items()},
+        "settings": {k: (json_num(v) if isinstance(v, float) else v) for k, v in asdict(ev.settings).items()},
     }
     if ev.decimation is not None:
         dd = ev.decimation
@@ -139,10 +126,10 @@ def evaluation_summary(ev, units) -> dict:
 
 
 def _arc(a, f) -> dict:
-    return {"start_deg": _n(a.start_deg), "end_deg": _n(a.end_deg), "arc_length": _n(a.arc_length / f),
-            "depth": _n(a.depth / f), "deepest_deg": _n(a.deepest_deg), "depth_sd": _n(a.depth_sd / f),
-            "permissible": _n(a.permissible / f) if a.permissible is not None else None, "verdict": a.verdict,
-            "ratio": _n(a.ratio), "ratio_upper95": _n(a.ratio_upper95)}
+    return {"start_deg": json_num(a.start_deg), "end_deg": json_num(a.end_deg), "arc_length": json_num(a.arc_length / f),
+            "depth": json_num(a.depth / f), "deepest_deg": json_num(a.deepest_deg), "depth_sd": json_num(a.depth_sd / f),
+            "permissible": json_num(a.permissible / f) if a.permissible is not None else None, "verdict": a.verdict,
+            "ratio": json_num(a.ratio), "ratio_upper95": json_num(a.ratio_upper95)}
 
 
 def _suffix(units) -> str:
@@ -163,7 +150,7 @@ def evaluation_csv(ev, units) -> str:
         st = "exceeds" if d.exceeds[i] else ("indeterminate" if d.indeterminate[i] else
                                              ("acceptable" if np.isfinite(d.ratio[i]) else "no neighbours"))
         vals = [s.elevation[i], ev.out_of_plane[i], d.S[i], d.S_sd[i], d.allowable[i]]
-        w.writerow([_c(s.azimuth_deg[i]), s.label[i]] + [_c(v / f) for v in vals] + [_c(d.ratio[i]), st])
+        w.writerow([csv_cell(s.azimuth_deg[i]), s.label[i]] + [csv_cell(v / f) for v in vals] + [csv_cell(d.ratio[i]), st])
     return buf.getvalue()
 
 
@@ -182,7 +169,7 @@ def fe_csv(ev, units) -> str:
     se = s.std_error if s.std_error is not None else np.full(len(s.azimuth_deg), np.nan)
     for a, uu, e in zip(s.azimuth_deg, ev.out_of_plane, se):
         th = np.radians(a)
-        w.writerow([_c(a), _c(R * th / f), _c(R * np.sin(th) / f), _c(R * np.cos(th) / f), _c(uu / f), _c(e / f)])
+        w.writerow([csv_cell(a), csv_cell(R * th / f), csv_cell(R * np.sin(th) / f), csv_cell(R * np.cos(th) / f), csv_cell(uu / f), csv_cell(e / f)])
     return buf.getvalue()
 
 

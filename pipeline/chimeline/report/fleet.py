@@ -12,6 +12,7 @@ from ..core.robust import Z95
 from ..io.atomic import json_text
 from ..notices import CAUTION, ILLUSTRATIVE_TABLE, VERTICAL_REFERENCE
 from ..version import __version__
+from .cells import csv_cell, json_num
 from .console import month_text, p_text
 from .html import png_data_uri, template_env
 from .mpl import BAND, INK, MEASURED, MUTED, new_figure, png_bytes
@@ -28,33 +29,13 @@ HISTORY_SCOPE = ("uniform and tilt changes rest on both scans' vertical referenc
                  "registration) unless the scans are tied to survey control; out-of-plane changes do not")
 
 
-def _f(v):
-    """A float at full precision for JSON (None where missing or not finite)."""
-    if v is None:
-        return None
-    v = float(v)
-    return v if math.isfinite(v) else None
-
-
-def _c(v) -> str:
-    """A cell at full precision for CSV ('' where missing or not finite)."""
-    if v is None:
-        return ""
-    if isinstance(v, str):
-        return v
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    v = float(v)
-    return repr(v) if math.isfinite(v) else ""
-
-
 def _row_dict(r) -> dict:
     return {"tag": r.tag, "survey_date": r.survey_date, "kind": r.kind, "status": r.status, "verdict": r.verdict,
-            "governing": r.governing, "max_ratio": _f(r.max_ratio), "max_ratio_upper95": _f(r.max_ratio_upper95),
-            "tilt_amplitude_m": _f(r.tilt_amplitude), "tilt_low_azimuth_deg": _f(r.tilt_low_azimuth_deg),
-            "noise_sigma_m": _f(r.noise_sigma), "coverage": _f(r.coverage),
-            "center_x_m": _f(r.center[0]) if r.center else None, "center_y_m": _f(r.center[1]) if r.center else None,
-            "radius_m": _f(r.radius), "arc_table_illustrative": r.illustrative, "error": r.error, "folder": r.folder,
+            "governing": r.governing, "max_ratio": json_num(r.max_ratio), "max_ratio_upper95": json_num(r.max_ratio_upper95),
+            "tilt_amplitude_m": json_num(r.tilt_amplitude), "tilt_low_azimuth_deg": json_num(r.tilt_low_azimuth_deg),
+            "noise_sigma_m": json_num(r.noise_sigma), "coverage": json_num(r.coverage),
+            "center_x_m": json_num(r.center[0]) if r.center else None, "center_y_m": json_num(r.center[1]) if r.center else None,
+            "radius_m": json_num(r.radius), "arc_table_illustrative": r.illustrative, "error": r.error, "folder": r.folder,
             "report": r.report}
 
 
@@ -67,41 +48,41 @@ def fleet_csv(rows) -> str:
     w.writerow(FLEET_COLUMNS)
     for r in rows:
         d = _row_dict(r)
-        w.writerow([_c(d[k]) if d[k] is not None else "" for k in FLEET_COLUMNS])
+        w.writerow([csv_cell(d[k]) if d[k] is not None else "" for k in FLEET_COLUMNS])
     return buf.getvalue()
 
 
 def _change_dict(ch) -> dict:
     az, oop, se = ch.largest_out_of_plane
     return {"n_common": int(len(ch.azimuth_deg)),
-            "uniform": {"mean_difference": _f(ch.mean), "mean_difference_se": _f(ch.mean_se),
-                        "rate_per_year": _f(ch.rate(ch.mean)), "rate_se": _f(ch.rate(ch.mean_se)),
-                        "consistency_p": _f(ch.consistency_p)},
-            "tilt_change": {"b_cos": _f(ch.tilt_b), "c_sin": _f(ch.tilt_c),
-                            "covariance": [[_f(v) for v in row] for row in ch.tilt_cov],
-                            "amplitude": _f(ch.tilt_amplitude), "amplitude_se": _f(ch.tilt_amplitude_se),
-                            "low_azimuth_deg": _f(ch.tilt_low_azimuth_deg), "p_value": _f(ch.tilt_p),
-                            "amplitude_rate_per_year": _f(ch.rate(ch.tilt_amplitude)),
-                            "amplitude_rate_se": _f(ch.rate(ch.tilt_amplitude_se))},
-            "out_of_plane_change": {"largest": {"azimuth_deg": _f(az), "change": _f(oop), "change_se": _f(se),
-                                                "rate_per_year": _f(ch.rate(oop)), "rate_se": _f(ch.rate(se))},
-                                    "shape_change_p_value": _f(ch.modes_p),
+            "uniform": {"mean_difference": json_num(ch.mean), "mean_difference_se": json_num(ch.mean_se),
+                        "rate_per_year": json_num(ch.rate(ch.mean)), "rate_se": json_num(ch.rate(ch.mean_se)),
+                        "consistency_p": json_num(ch.consistency_p)},
+            "tilt_change": {"b_cos": json_num(ch.tilt_b), "c_sin": json_num(ch.tilt_c),
+                            "covariance": [[json_num(v) for v in row] for row in ch.tilt_cov],
+                            "amplitude": json_num(ch.tilt_amplitude), "amplitude_se": json_num(ch.tilt_amplitude_se),
+                            "low_azimuth_deg": json_num(ch.tilt_low_azimuth_deg), "p_value": json_num(ch.tilt_p),
+                            "amplitude_rate_per_year": json_num(ch.rate(ch.tilt_amplitude)),
+                            "amplitude_rate_se": json_num(ch.rate(ch.tilt_amplitude_se))},
+            "out_of_plane_change": {"largest": {"azimuth_deg": json_num(az), "change": json_num(oop), "change_se": json_num(se),
+                                                "rate_per_year": json_num(ch.rate(oop)), "rate_se": json_num(ch.rate(se))},
+                                    "shape_change_p_value": json_num(ch.modes_p),
                                     "model": f"Fourier order {ch.model_order}: {ch.model_selection}"},
-            "per_azimuth": {"azimuth_deg": [_f(v) for v in ch.azimuth_deg],
-                            "difference": [_f(v) for v in ch.difference],
-                            "difference_se": [_f(v) for v in ch.difference_se],
-                            "rate_per_year": [_f(v) for v in ch.rate(ch.difference)],
-                            "rate_se": [_f(v) for v in ch.rate(ch.difference_se)],
-                            "out_of_plane_change": [_f(v) for v in ch.out_of_plane],
-                            "out_of_plane_change_se": [_f(v) for v in ch.out_of_plane_se]}}
+            "per_azimuth": {"azimuth_deg": [json_num(v) for v in ch.azimuth_deg],
+                            "difference": [json_num(v) for v in ch.difference],
+                            "difference_se": [json_num(v) for v in ch.difference_se],
+                            "rate_per_year": [json_num(v) for v in ch.rate(ch.difference)],
+                            "rate_se": [json_num(v) for v in ch.rate(ch.difference_se)],
+                            "out_of_plane_change": [json_num(v) for v in ch.out_of_plane],
+                            "out_of_plane_change_se": [json_num(v) for v in ch.out_of_plane_se]}}
 
 
 def _extrapolation_dict(ex) -> dict:
-    return {"check": ex.check, "status": ex.status, "ratio_from": _f(ex.ratio_from), "ratio_from_se": _f(ex.ratio_from_se),
-            "ratio_to": _f(ex.ratio_to), "ratio_to_se": _f(ex.ratio_to_se), "rate_per_year": _f(ex.rate_per_year),
-            "rate_se": _f(ex.rate_se), "significant": ex.significant, "years_to_limit": _f(ex.years_to_limit),
-            "years_ci95": [_f(v) for v in ex.years_ci95] if ex.years_ci95 else None,
-            "years_se_delta_method": _f(ex.years_se), "date": ex.date,
+    return {"check": ex.check, "status": ex.status, "ratio_from": json_num(ex.ratio_from), "ratio_from_se": json_num(ex.ratio_from_se),
+            "ratio_to": json_num(ex.ratio_to), "ratio_to_se": json_num(ex.ratio_to_se), "rate_per_year": json_num(ex.rate_per_year),
+            "rate_se": json_num(ex.rate_se), "significant": ex.significant, "years_to_limit": json_num(ex.years_to_limit),
+            "years_ci95": [json_num(v) for v in ex.years_ci95] if ex.years_ci95 else None,
+            "years_se_delta_method": json_num(ex.years_se), "date": ex.date,
             "date_ci95": list(ex.date_ci95) if ex.date_ci95 else None, "method": ex.method}
 
 
@@ -111,15 +92,15 @@ def history_json(h) -> str:
            "scope": HISTORY_SCOPE, "vertical_reference": VERTICAL_REFERENCE, "caution": CAUTION,
            "software": {"name": "chimeline", "version": __version__},
            "surveys": [{"survey_date": s.survey_date, "folder": s.folder, "kind": s.kind, "verdict": s.verdict,
-                        "governing": s.governing, "max_ratio": _f(s.max_ratio),
-                        "tilt_amplitude": _f(s.tilt_amplitude), "tilt_low_azimuth_deg": _f(s.tilt_low_azimuth_deg)}
+                        "governing": s.governing, "max_ratio": json_num(s.max_ratio),
+                        "tilt_amplitude": json_num(s.tilt_amplitude), "tilt_low_azimuth_deg": json_num(s.tilt_low_azimuth_deg)}
                        for s in h.surveys],
            "intervals": []}
     for iv in h.intervals:
-        d = {"from_date": iv.from_date, "to_date": iv.to_date, "years": _f(iv.years), "note": iv.note,
+        d = {"from_date": iv.from_date, "to_date": iv.to_date, "years": json_num(iv.years), "note": iv.note,
              "caveat": iv.caveat,
-             "tilt_amplitude_rate_per_year": _f(iv.tilt_amplitude_rate),
-             "tilt_amplitude_rate_se": _f(iv.tilt_amplitude_rate_se)}
+             "tilt_amplitude_rate_per_year": json_num(iv.tilt_amplitude_rate),
+             "tilt_amplitude_rate_se": json_num(iv.tilt_amplitude_rate_se)}
         if iv.change is not None:
             d.update(_change_dict(iv.change))
         if iv.extrapolation is not None:
@@ -143,10 +124,10 @@ def history_csv(h) -> str:
         if ch is None:
             continue
         for i in range(len(ch.azimuth_deg)):
-            w.writerow([iv.from_date, iv.to_date, _c(ch.years), _c(ch.azimuth_deg[i]), _c(ch.difference[i]),
-                        _c(ch.difference_se[i]), _c(ch.difference[i] / ch.years), _c(ch.difference_se[i] / ch.years),
-                        _c(ch.out_of_plane[i]), _c(ch.out_of_plane_se[i]), _c(ch.out_of_plane[i] / ch.years),
-                        _c(ch.out_of_plane_se[i] / ch.years)])
+            w.writerow([iv.from_date, iv.to_date, csv_cell(ch.years), csv_cell(ch.azimuth_deg[i]), csv_cell(ch.difference[i]),
+                        csv_cell(ch.difference_se[i]), csv_cell(ch.difference[i] / ch.years), csv_cell(ch.difference_se[i] / ch.years),
+                        csv_cell(ch.out_of_plane[i]), csv_cell(ch.out_of_plane_se[i]), csv_cell(ch.out_of_plane[i] / ch.years),
+                        csv_cell(ch.out_of_plane_se[i] / ch.years)])
     return buf.getvalue()
 
 

@@ -19,6 +19,7 @@ from ..core.robust import Z95
 from ..evaluate.verdicts import SEVERITY, banded
 from ..notices import CAUTION, GEOMETRY_TOLERANCES
 from ..units import UNIT_LABELS, small_length, to_metres
+from .cells import csv_cell, json_num
 from .lengths import Lengths
 from .mpl import BAND, INK, LIMIT, MUTED, new_figure, png_bytes
 
@@ -87,11 +88,6 @@ def _check(name, v, se, tol, verdicts, az, hh, rule) -> GeometryCheck:
 # CSV and JSON
 
 
-def _f(v) -> str:
-    v = float(v)
-    return repr(v) if np.isfinite(v) else ""
-
-
 def _csv(header, rows) -> str:
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
@@ -116,10 +112,10 @@ def plumbness_csv(geo, L: Lengths) -> str:
     for i, hh in enumerate(pl.heights):
         for j, a in enumerate(pl.azimuth_deg):
             t = pl.total[i, j]
-            rows.append([_f(a), _f(L.length(hh)), _f(L.length(pl.radial[i, j])), _f(L.length(pl.tangential[i, j])),
-                         _f(L.length(t)), _f(L.length(pl.tolerance)), _f(t / pl.tolerance),
-                         _f(L.length(pl.radial_se[i, j])), _f(L.length(pl.tangential_se[i, j])),
-                         _f(L.length(pl.total_se[i, j])), v[i, j], int(pl.course[i]), int(pl.n_points[i, j]),
+            rows.append([csv_cell(a), csv_cell(L.length(hh)), csv_cell(L.length(pl.radial[i, j])), csv_cell(L.length(pl.tangential[i, j])),
+                         csv_cell(L.length(t)), csv_cell(L.length(pl.tolerance)), csv_cell(t / pl.tolerance),
+                         csv_cell(L.length(pl.radial_se[i, j])), csv_cell(L.length(pl.tangential_se[i, j])),
+                         csv_cell(L.length(pl.total_se[i, j])), v[i, j], int(pl.course[i]), int(pl.n_points[i, j]),
                          int(pl.n_stations[i, j])])
     return _csv(header, rows)
 
@@ -135,9 +131,9 @@ def roundness_csv(geo, L: Lengths) -> str:
     for i, hh in enumerate(ro.heights):
         for j, a in enumerate(ro.azimuth_deg):
             d = ro.deviation[i, j]
-            rows.append([_f(a), _f(L.length(hh)), _f(L.length(ro.radius[i, j])), _f(L.length(d)),
-                         _f(L.length(ro.tolerance)), _f(L.length(ro.radius_se[i, j])), _f(abs(d) / ro.tolerance),
-                         v[i, j], int(ro.n_points[i, j]), _f(L.length(ro.deviation_se[i, j]))])
+            rows.append([csv_cell(a), csv_cell(L.length(hh)), csv_cell(L.length(ro.radius[i, j])), csv_cell(L.length(d)),
+                         csv_cell(L.length(ro.tolerance)), csv_cell(L.length(ro.radius_se[i, j])), csv_cell(abs(d) / ro.tolerance),
+                         v[i, j], int(ro.n_points[i, j]), csv_cell(L.length(ro.deviation_se[i, j]))])
     return _csv(header, rows)
 
 
@@ -146,21 +142,16 @@ def deviation_csv(geo, L: Lengths) -> str:
     m = geo.deviation
     u = _unit_tag(L.unit)
     header = ["azimuth_deg", f"height_{u}", f"deviation_{u}", f"std_error_{u}", "n_points", "n_stations"]
-    rows = [[_f(a), _f(L.length(hh)), _f(L.length(m.deviation[i, j])), _f(L.length(m.std_error[i, j])),
+    rows = [[csv_cell(a), csv_cell(L.length(hh)), csv_cell(L.length(m.deviation[i, j])), csv_cell(L.length(m.std_error[i, j])),
              int(m.n_points[i, j]), int(m.n_stations[i, j])]
             for i, hh in enumerate(m.heights) for j, a in enumerate(m.azimuth_deg)]
     return _csv(header, rows)
 
 
-def _num(v):
-    v = float(v)
-    return v if np.isfinite(v) else None
-
-
 def geometry_summary(geo, L: Lengths, vertical_reference_sigma: float) -> dict:
     """The ``geometry`` block of profile.json (lengths in the output unit, full precision)."""
     pl, ro = geo.plumb, geo.roundness
-    n = lambda v: _num(L.length(v))  # noqa: E731
+    n = lambda v: json_num(L.length(v))  # noqa: E731
     out = {
         "units": L.unit,
         "heights": "above the junction plane (cosine fit of the profile) along the scan's up axis; azimuths as in "
@@ -185,26 +176,26 @@ def geometry_summary(geo, L: Lengths, vertical_reference_sigma: float) -> dict:
         ratio = np.where(ok, pl.total / pl.tolerance, -1.0)
         i, j = np.unravel_index(int(np.argmax(ratio)), ratio.shape)
         out["max_out_of_plumb"] = {
-            "value": n(pl.total[i, j]), "std_error": n(pl.total_se[i, j]), "azimuth_deg": _num(pl.azimuth_deg[j]),
+            "value": n(pl.total[i, j]), "std_error": n(pl.total_se[i, j]), "azimuth_deg": json_num(pl.azimuth_deg[j]),
             "height": n(pl.heights[i]), "radial": n(pl.radial[i, j]), "tangential": n(pl.tangential[i, j]),
-            "tolerance": n(pl.tolerance), "ratio": _num(ratio[i, j]), "verdict": plumb_verdicts(pl)[i, j]}
+            "tolerance": n(pl.tolerance), "ratio": json_num(ratio[i, j]), "verdict": plumb_verdicts(pl)[i, j]}
     ok = np.isfinite(ro.deviation)
     if ok.any():
         a = np.where(ok, np.abs(ro.deviation), -1.0)
         i, j = np.unravel_index(int(np.argmax(a)), a.shape)
         out["max_radius_deviation"] = {
-            "value": n(ro.deviation[i, j]), "std_error": n(ro.deviation_se[i, j]), "azimuth_deg": _num(ro.azimuth_deg[j]),
+            "value": n(ro.deviation[i, j]), "std_error": n(ro.deviation_se[i, j]), "azimuth_deg": json_num(ro.azimuth_deg[j]),
             "height": n(ro.heights[i]), "radius": n(ro.radius[i, j]), "tolerance": n(ro.tolerance),
-            "ratio": _num(a[i, j] / ro.tolerance), "verdict": roundness_verdicts(ro)[i, j]}
+            "ratio": json_num(a[i, j] / ro.tolerance), "verdict": roundness_verdicts(ro)[i, j]}
     per = [{"height": n(h), "amplitude": n(ro.ovality[i]), "std_error": n(ro.ovality_se[i]),
-            "long_axis_deg": _num(ro.ovality_axis_deg[i]), "diameter_difference": n(4 * ro.ovality[i]),
+            "long_axis_deg": json_num(ro.ovality_axis_deg[i]), "diameter_difference": n(4 * ro.ovality[i]),
             "modes": {str(k + 2): n(v) for k, v in enumerate(ro.modes[i])}}
            for i, h in enumerate(ro.heights)]
     fin = np.isfinite(ro.ovality)
     if fin.any():
         k = int(np.nanargmax(ro.ovality))
         out["ovality"] = {"max_amplitude": n(ro.ovality[k]), "std_error": n(ro.ovality_se[k]), "height": n(ro.heights[k]),
-                          "long_axis_deg": _num(ro.ovality_axis_deg[k]),
+                          "long_axis_deg": json_num(ro.ovality_axis_deg[k]),
                           "definition": "mode-2 amplitude a of the radius: r = R + a cos(2 (azimuth - long axis)); "
                                         "largest minus smallest diameter = 4 a", "per_height": per}
     return out
